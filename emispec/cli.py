@@ -1,0 +1,167 @@
+"""Command line: parse arguments, call the core, format.  No physics here."""
+
+from __future__ import annotations
+
+import functools
+import sys
+from pathlib import Path
+from typing import Optional
+
+import typer
+from rich.console import Console
+from rich.table import Table
+
+from . import __version__
+from .board import BoardError, load_board
+from .limits import LimitError, bundled_limits, load_limit
+from .margin import estimate as run_estimate
+from .receiver import band_names
+from .report import CAUTION, atomic_write, json_text, write_outputs
+
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    help=f"Estimate clock-harmonic emissions of a board and their margins to a limit line.\n\n{CAUTION}",
+)
+out = Console(highlight=False)
+err = Console(stderr=True, highlight=False)
+
+
+class OutputError(Exception):
+    """An output that cannot be written (a user problem: exit 2)."""
+
+
+def _guarded(command):
+    """Turn input problems into one line on stderr and exit 2, anything else into exit 1."""
+
+    @functools.wraps(command)
+    def wrapper(*args, **kwargs):
+        try:
+            return command(*args, **kwargs)
+        except (BoardError, LimitError, OutputError) as problem:
+            err.print(f"error: {problem}", markup=False, soft_wrap=True)
+            raise typer.Exit(2) from None
+        except typer.Exit:
+            raise
+        except Exception as problem:  # noqa: BLE001 - the last line of defence
+            err.print(f"internal error: {type(problem).__name__}: {problem} (please report it)", markup=False,
+                      soft_wrap=True)
+            raise typer.Exit(1) from None
+
+    return wrapper
+
+
+def _fmt(x: float) -> str:
+    return "null" if not x == x else f"{x:.1f}"
+
+
+def _margin_style(margin: float, guard: float) -> str:
+    if not margin == margin:
+        return "dim"
+    return "bold red" if margin < 0 else "yellow" if margin < guard else "green"
+
+
+def _verdict_style(verdict: str) -> str:
+    return "bold red" if verdict.startswith("FAILS") else "bold yellow" if verdict.startswith("MARGINAL") else "bold green"
+
+
+@app.command()
+@_guarded
+def estimate(
+    board: Path = typer.Argument(..., help="Board file (TOML)."),
+    json_path: Optional[str] = typer.Option(None, "--json", help="Write the JSON result to PATH, or '-' for stdout."),
+    out_dir: Optional[Path] = typer.Option(None, "--out", help="Write CSV, Markdown, JSON and a spectrum plot here."),
+    rows: int = typer.Option(20, "--rows", min=0, help="How many of the worst rows to print (0: all)."),
+) -> None:
+    """Estimate every clock harmonic's reading and margin, worst first."""
+    result = run_estimate(load_board(board))
+    to_stdout = json_path == "-"
+    if json_path and not to_stdout:
+        _write(lambda: atomic_write(Path(json_path), json_text(result)), json_path)
+    if out_dir is not None:
+        _write(lambda: write_outputs(result, out_dir), str(out_dir))
+    if to_stdout:
+        sys.stdout.write(json_text(result))
+        err.print(result.verdict(), markup=False)
+        return
+    _print_table(result, rows)
+
+
+def _write(action, where: str) -> None:
+    try:
+        action()
+    except OSError as problem:
+        raise OutputError(f"{where}: cannot write output ({problem.strerror or problem}); nothing was written") from None
+
+
+def _print_table(result, count: int) -> None:
+    rows, board = result.rows, result.board
+    shown = len(rows) if count == 0 else min(count, len(rows))
+    unit = board.limit.unit
+    table = Table(title=f"{board.title}\nworst {shown} of {len(rows)} harmonics against {board.limit.name} ({unit})",
+                  title_style="bold", caption="reading, limit and margin of the detector with the least margin; "
+                  "--json and --out give every detector", caption_style="dim")
+    for name, justify in (("source", "left"), ("n", "right"), ("MHz", "right"), ("band", "left"),
+                          ("det", "left"), ("read", "right"), ("limit", "right"),
+                          ("margin dB", "right"), ("flags", "left")):
+        table.add_column(name, justify=justify, no_wrap=name != "flags", min_width=12 if name == "flags" else None)
+    bands = band_names(rows.frequency_hz[:shown])
+    for i in range(shown):
+        det = rows.worst_detector[i]
+        reading = rows.readings[det][i] if det else max(rows.readings[d][i] for d in board.limit.detectors)
+        limit = rows.limits[det][i] if det else float("nan")
+        margin = rows.worst_margin_db[i]
+        table.add_row(
+            str(rows.source[i]), str(rows.harmonic[i]), f"{rows.frequency_hz[i] / 1e6:.6g}", str(bands[i]),
+            det or "-", _fmt(reading), _fmt(limit), f"[{_margin_style(margin, board.guard_band_db)}]{_fmt(margin)}[/]",
+            ", ".join(rows.flag_list(i)),
+        )
+    out.print(table)
+    verdict = result.verdict()
+    out.print(f"[{_verdict_style(verdict)}]{verdict}[/]")
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+@app.command()
+@_guarded
+def limits(name: Optional[str] = typer.Argument(None, help="Show this limit's points (bundled name or file).")) -> None:
+    """List the bundled limit lines, or show one limit's points."""
+    if name is not None:
+        limit = load_limit(name)
+        out.print(f"[bold]{limit.title}[/] ({limit.name})\nsource: {limit.source}\n"
+                  f"{limit.measurement}" + (f" at {limit.distance_m:g} m" if limit.distance_m else "")
+                  + f", {limit.unit}", markup=True)
+        for det, line in limit.lines.items():
+            points = ", ".join(f"{f / 1e6:g} MHz {y:g}" for f, y in zip(line.frequency_hz, line.level_db))
+            out.print(f"  {det}: {points}", markup=False)
+        return
+    table = Table(title="Bundled limits", title_style="bold")
+    for col in ("name", "measurement", "distance", "unit", "detectors", "MHz"):
+        table.add_column(col, no_wrap=True)
+    sources = []
+    for key in bundled_limits():
+        limit = load_limit(key)
+        lo, hi = limit.span_hz
+        table.add_row(key, limit.measurement, f"{limit.distance_m:g} m" if limit.distance_m else "-", limit.unit,
+                      ", ".join(limit.detectors), f"{lo / 1e6:g}-{hi / 1e6:g}")
+        sources.append(f"[bold]{key}[/]: {limit.source}")
+    out.print(table)
+    out.print("Sources:\n" + "\n".join(sources))
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+def _version(value: bool) -> None:
+    if value:
+        out.print(f"emispec {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _root(
+    version: bool = typer.Option(False, "--version", callback=_version, is_eager=True, help="Print the version."),
+) -> None:
+    pass
+
+
+def main() -> None:
+    app()

@@ -1,0 +1,325 @@
+"""Emission limit lines: points in (frequency, level), linear in dB over log f.
+
+Standards write sloped segments as levels that fall linearly with the
+logarithm of frequency (e.g. CISPR 32 Table A.10, 66 to 56 dBuV from 0.15 to
+0.5 MHz), and steps as two levels at one frequency of which the lower
+applies at the boundary (47 CFR 15.107(a) note, 15.109(c)).  A limit bundles
+one line per detector with its unit, measurement kind and source.
+
+References
+----------
+CISPR 32:2015, Annex A; 47 CFR 15.107, 15.109, 15.35(b), 15.33(b).
+"""
+
+from __future__ import annotations
+
+import csv
+import sys
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+
+import numpy as np
+
+from .units import QuantityError, parse_quantity
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+__all__ = [
+    "DETECTORS",
+    "UNITS",
+    "LimitError",
+    "LimitLine",
+    "Limit",
+    "upper_frequency_hz",
+    "bundled_limits",
+    "load_limit",
+    "limit_from_mapping",
+]
+
+#: Detectors a limit line may name: peak, quasi-peak, CISPR average, RMS-average.
+DETECTORS = ("PK", "QP", "AV", "RMS-AV")
+UNITS = ("dBuV/m", "dBuV", "dBuA")
+MEASUREMENTS = ("radiated", "conducted")
+UPPER_FREQUENCY_RULES = ("fcc-15.33", "cispr32")
+
+
+class LimitError(ValueError):
+    """A malformed limit file; the message names file, key and what is allowed."""
+
+    def __init__(self, file: str, key: str, problem: str):
+        self.file, self.key, self.problem = file, key, problem
+        super().__init__(f"{file}: {key}: {problem}")
+
+
+@dataclass(frozen=True)
+class LimitLine:
+    """One detector's limit: ascending frequencies [Hz] and levels [dB]."""
+
+    detector: str
+    frequency_hz: np.ndarray
+    level_db: np.ndarray
+
+    @property
+    def span_hz(self) -> tuple[float, float]:
+        return float(self.frequency_hz[0]), float(self.frequency_hz[-1])
+
+    def level(self, frequency_hz) -> np.ndarray:
+        """Limit level at each frequency; NaN outside the line.
+
+        Linear in dB over log f between points; at a frequency listed twice
+        (a step) the lower level applies.
+        """
+        f = np.atleast_1d(np.asarray(frequency_hz, dtype=float))
+        x = np.log10(self.frequency_hz)
+        y = self.level_db
+        lf = np.log10(f)
+        i = np.clip(np.searchsorted(x, lf, side="right") - 1, 0, len(x) - 2)
+        x0, x1, y0, y1 = x[i], x[i + 1], y[i], y[i + 1]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            t = np.where(x1 > x0, (lf - x0) / (x1 - x0), 0.0)
+        level = y0 + t * (y1 - y0)
+        # exact hits on a listed frequency take the lowest level listed there
+        for xf in np.unique(x):
+            hit = np.isclose(lf, xf, rtol=0, atol=1e-12)
+            if hit.any():
+                level[hit] = y[x == xf].min()
+        lo, hi = self.span_hz
+        inside = (f >= lo * (1 - 1e-12)) & (f <= hi * (1 + 1e-12))
+        return np.where(inside, level, np.nan)
+
+
+@dataclass(frozen=True)
+class Limit:
+    """A limit: detector lines plus what they are measured in."""
+
+    name: str
+    title: str
+    source: str
+    measurement: str
+    unit: str
+    lines: dict[str, LimitLine]
+    distance_m: float | None = None
+    upper_frequency: str | None = None
+    path: str | None = field(default=None, compare=False)
+
+    @property
+    def detectors(self) -> tuple[str, ...]:
+        return tuple(self.lines)
+
+    @property
+    def span_hz(self) -> tuple[float, float]:
+        spans = [line.span_hz for line in self.lines.values()]
+        return min(s[0] for s in spans), max(s[1] for s in spans)
+
+    def levels(self, frequency_hz) -> dict[str, np.ndarray]:
+        """Each detector's level at the frequencies (NaN where it does not apply)."""
+        return {det: line.level(frequency_hz) for det, line in self.lines.items()}
+
+
+def upper_frequency_hz(rule: str | None, highest_internal_hz: float) -> float:
+    """Highest frequency a standard requires measuring, from the highest internal frequency.
+
+    Parameters
+    ----------
+    rule : {"fcc-15.33", "cispr32"} or None
+        None means no rule: infinity.
+    highest_internal_hz : float
+        Highest frequency generated or used in the device [Hz].
+
+    References
+    ----------
+    47 CFR 15.33(b)(1) table; CISPR 32:2015 Table 1 (Fx rule, recalled from
+    memory, see tests).
+    """
+    fx = highest_internal_hz
+    if rule is None:
+        return np.inf
+    if rule == "fcc-15.33":
+        if fx < 1.705e6:
+            return 30e6
+        if fx <= 108e6:
+            return 1e9
+        if fx <= 500e6:
+            return 2e9
+        if fx <= 1e9:
+            return 5e9
+        return min(5 * fx, 40e9)
+    if rule == "cispr32":
+        if fx <= 108e6:
+            return 1e9
+        if fx <= 500e6:
+            return 2e9
+        if fx <= 1e9:
+            return 5e9
+        return min(5 * fx, 6e9)
+    raise ValueError(f"unknown upper-frequency rule {rule!r}")
+
+
+def _limits_dir():
+    return resources.files("emispec.limit_files")
+
+
+def bundled_limits() -> dict[str, Path]:
+    """Names of the bundled limits and their files."""
+    folder = _limits_dir()
+    return {
+        Path(str(item)).stem: Path(str(item))
+        for item in sorted(folder.iterdir(), key=lambda p: p.name)
+        if item.name.endswith(".toml")
+    }
+
+
+def _points(file: str, key: str, value, base_dir: Path | None) -> tuple[np.ndarray, np.ndarray]:
+    if isinstance(value, str):  # a two-column CSV beside the limit file
+        return _read_csv_points((base_dir or Path.cwd()) / value, key)[:2]
+    allowed = 'a list of [frequency, level] pairs such as [["30 MHz", 40.0], ["230 MHz", 40.0]]'
+    if not isinstance(value, list) or len(value) < 2:
+        raise LimitError(file, key, f"expected {allowed}")
+    freqs, levels = [], []
+    for k, point in enumerate(value):
+        if not (isinstance(point, list) and len(point) == 2):
+            raise LimitError(file, f"{key}[{k}]", f"expected {allowed}")
+        try:
+            freqs.append(parse_quantity(point[0], "frequency"))
+            levels.append(parse_quantity(point[1], "decibel"))
+        except QuantityError as err:
+            raise LimitError(file, f"{key}[{k}]", str(err)) from None
+    return _checked(file, key, np.array(freqs), np.array(levels))
+
+
+def _checked(file, key, freqs, levels):
+    if np.any(freqs <= 0):
+        raise LimitError(file, key, "frequencies must be > 0 Hz")
+    if np.any(np.diff(freqs) < 0):
+        raise LimitError(file, key, "frequencies must be in ascending order (a step repeats one frequency)")
+    if np.any((np.diff(freqs) == 0)[1:] & (np.diff(freqs) == 0)[:-1]):
+        raise LimitError(file, key, "a frequency may appear at most twice (one step)")
+    if freqs[0] == freqs[-1]:
+        raise LimitError(file, key, "a line must span a frequency range")
+    return freqs, levels
+
+
+def _read_csv_points(path: Path, key: str = "limit"):
+    """Two-column CSV (frequency, level); '# key: value' comment lines carry metadata."""
+    file = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as err:
+        raise LimitError(file, key, f"cannot read the file ({err.strerror})") from None
+    meta, freqs, levels = {}, [], []
+    rows = [line for line in text.splitlines() if line.strip()]
+    for lineno, line in enumerate(rows, start=1):
+        if line.lstrip().startswith("#"):
+            name, sep, val = line.lstrip("# ").partition(":")
+            if sep:
+                meta[name.strip().lower()] = val.strip()
+            continue
+        cells = next(csv.reader([line]))
+        if len(cells) != 2:
+            raise LimitError(file, f"line {lineno}", "expected two columns: frequency, level in dB")
+        try:
+            freqs.append(parse_quantity(cells[0].strip(), "frequency"))
+            levels.append(parse_quantity(cells[1].strip(), "decibel"))
+        except QuantityError as err:
+            if not freqs and not levels:  # a header row
+                continue
+            raise LimitError(file, f"line {lineno}", str(err)) from None
+    if len(freqs) < 2:
+        raise LimitError(file, key, "needs at least two (frequency, level) rows")
+    f, y = _checked(file, key, np.array(freqs), np.array(levels))
+    return f, y, meta
+
+
+def _choice(file, key, value, allowed):
+    if value not in allowed:
+        raise LimitError(file, key, f"{value!r} is not allowed; allowed: {', '.join(allowed)}")
+    return value
+
+
+def limit_from_mapping(data: dict, name: str, file: str, base_dir: Path | None = None) -> Limit:
+    """Build a :class:`Limit` from a parsed limit table (file or inline)."""
+    known = {"title", "source", "measurement", "distance", "unit", "lines", "upper_frequency"}
+    for key in data:
+        if key not in known:
+            raise LimitError(file, key, f"unknown key; allowed: {', '.join(sorted(known))}")
+    for key in ("measurement", "unit", "lines"):
+        if key not in data:
+            raise LimitError(file, key, "missing")
+    measurement = _choice(file, "measurement", data["measurement"], MEASUREMENTS)
+    unit = _choice(file, "unit", data["unit"], UNITS)
+    distance = None
+    if measurement == "radiated":
+        if "distance" not in data:
+            raise LimitError(file, "distance", "missing (a radiated limit states its distance)")
+        try:
+            distance = parse_quantity(data["distance"], "length")
+        except QuantityError as err:
+            raise LimitError(file, "distance", str(err)) from None
+        if not distance > 0:
+            raise LimitError(file, "distance", "must be > 0 m")
+        if unit != "dBuV/m":
+            raise LimitError(file, "unit", "a radiated limit is in dBuV/m")
+    elif "distance" in data:
+        raise LimitError(file, "distance", "only a radiated limit has a distance")
+    elif unit == "dBuV/m":
+        raise LimitError(file, "unit", "a conducted limit is in dBuV or dBuA")
+    upper = data.get("upper_frequency")
+    if upper is not None:
+        _choice(file, "upper_frequency", upper, UPPER_FREQUENCY_RULES)
+    if not isinstance(data["lines"], dict) or not data["lines"]:
+        raise LimitError(file, "lines", f"expected a table of detector lines ({', '.join(DETECTORS)})")
+    lines = {}
+    for det, points in data["lines"].items():
+        _choice(file, f"lines.{det}", det, DETECTORS)
+        f, y = _points(file, f"lines.{det}", points, base_dir)
+        lines[det] = LimitLine(det, f, y)
+    return Limit(
+        name=name,
+        title=str(data.get("title", name)),
+        source=str(data.get("source", "not stated")),
+        measurement=measurement,
+        unit=unit,
+        lines=lines,
+        distance_m=distance,
+        upper_frequency=upper,
+        path=file,
+    )
+
+
+def load_limit(spec: str, base_dir: Path | None = None) -> Limit:
+    """Load a limit by bundled name, or from a TOML or CSV file path.
+
+    Parameters
+    ----------
+    spec : str
+        A bundled name (see :func:`bundled_limits`) or a path, relative to
+        ``base_dir`` when given.
+    """
+    bundled = bundled_limits()
+    if spec in bundled:
+        path = bundled[spec]
+    else:
+        path = Path(spec)
+        if base_dir is not None and not path.is_absolute():
+            path = base_dir / path
+        if not path.is_file():
+            raise LimitError(
+                str(path), "limit", f"no such file and no bundled limit {spec!r}; bundled: {', '.join(bundled)}"
+            )
+    file = str(path)
+    if path.suffix.lower() == ".csv":
+        f, y, meta = _read_csv_points(path)
+        data = {k: v for k, v in meta.items() if k != "detector"}
+        data["lines"] = {meta.get("detector", "QP"): [[a, b] for a, b in zip(f.tolist(), y.tolist())]}
+        return limit_from_mapping(data, path.stem, file)
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as err:
+        raise LimitError(file, "toml", f"not valid TOML ({err})") from None
+    except OSError as err:
+        raise LimitError(file, "limit", f"cannot read the file ({err.strerror})") from None
+    return limit_from_mapping(data, path.stem, file, path.parent)

@@ -1,0 +1,65 @@
+"""Plots of estimates.  Functions take result objects and return the figure."""
+
+from __future__ import annotations
+
+import matplotlib
+import matplotlib.ticker
+
+matplotlib.use("Agg")  # files only; never needs a display
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+from .margin import Estimate, clock_envelope_dbu  # noqa: E402
+
+__all__ = ["spectrum_figure"]
+
+DETECTOR_STYLE = {"QP": "-", "PK": "-.", "AV": "--", "RMS-AV": ":"}
+
+
+def spectrum_figure(est: Estimate):
+    """Harmonic readings, envelopes, limit lines, guard band and over-limit marks.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    board, limit, rows = est.board, est.board.limit, est.rows
+    lo, hi = est.span_hz
+    grid = np.geomspace(lo, hi, 2000)
+    fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
+    reading = np.fmax.reduce([rows.readings[d] for d in limit.detectors]) if len(rows) else np.array([])
+    colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    for k, clock in enumerate(board.clocks):
+        color = colors[k % len(colors)]
+        mine = rows.source == clock.name
+        ax.vlines(rows.frequency_hz[mine], -200, reading[mine], color=color, lw=0.8, alpha=0.6)
+        ax.plot(rows.frequency_hz[mine], reading[mine], "o", ms=3, color=color,
+                label=f"{clock.name} ({clock.wave.frequency_hz / 1e6:g} MHz)")
+        ax.plot(grid, clock_envelope_dbu(board, clock, grid), "--", lw=0.8, color=color, alpha=0.8)
+    levels = limit.levels(grid)
+    for det in (d for d in limit.detectors if np.isfinite(levels[d]).sum() > 1):
+        style = DETECTOR_STYLE.get(det, "-")
+        ax.plot(grid, levels[det], style, color="black", lw=1.6, label=f"limit {det}")
+        if board.guard_band_db > 0:
+            ax.plot(grid, levels[det] - board.guard_band_db, style, color="gray", lw=0.9,
+                    label=f"limit {det} - {board.guard_band_db:g} dB guard band")
+    over = rows.flags["over-limit"]
+    if over.any():
+        ax.plot(rows.frequency_hz[over], reading[over], "x", color="red", ms=8, mew=2, label="over the limit")
+    finite = reading[np.isfinite(reading)]
+    limit_max = max(np.nanmax(v) for v in levels.values() if np.isfinite(v).any())
+    top = max(limit_max, finite.max() if finite.size else limit_max) + 10
+    ax.set_ylim(top - 100, top)
+    ax.set_xscale("log")
+    ax.set_xlim(lo, hi)
+    ax.xaxis.set_major_locator(matplotlib.ticker.LogLocator(subs=(1.0, 2.0, 5.0)))
+    ax.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda x, _: f"{x / 1e6:g}"))
+    ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
+    ax.set_xlabel("Frequency [MHz]")
+    ax.set_ylabel(f"Reading [{limit.unit}]")
+    ax.set_title(f"{board.title}: estimate against {limit.name}\n{est.verdict()}", fontsize=10)
+    ax.grid(True, which="both", alpha=0.3)
+    fig.legend(fontsize=8, loc="outside right upper")
+    fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
+    return fig

@@ -1,0 +1,289 @@
+"""Trapezoidal clock waveforms, their loads, and triangular current pulses.
+
+Everything here is an exact Fourier series of a periodic piecewise-linear
+waveform.  Levels are peak amplitudes of each one-sided cosine component;
+divide by sqrt(2) for what an EMI receiver reads (see :func:`rms`).
+
+References
+----------
+C. R. Paul, *Introduction to Electromagnetic Compatibility*, 2nd ed.,
+Wiley, 2006, sec. 3.2 (spectra of digital waveforms): the trapezoidal pulse
+train, its sinc-sinc form and its bounding envelope.  The unequal-edge form is
+derived the same way, by differentiating the waveform into two rectangular
+pulses of height A/tr and -A/tf.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = [
+    "EDGE_FRACTION",
+    "WaveformError",
+    "full_edge_time",
+    "Trapezoid",
+    "harmonic_amplitudes",
+    "envelope",
+    "corner_frequencies",
+    "rms",
+    "load_current",
+    "triangle_pulse_amplitudes",
+]
+
+#: Fraction of the 0-100 % ramp time that an edge measured between these
+#: thresholds spans, for a linear ramp: t(10-90) = 0.8 t(0-100), t(20-80) = 0.6 t(0-100).
+EDGE_FRACTION = {"10-90": 0.8, "20-80": 0.6, "0-100": 1.0}
+
+
+class WaveformError(ValueError):
+    """Waveform parameters that describe no realisable trapezoid."""
+
+
+def full_edge_time(edge_s: float, convention: str = "10-90") -> float:
+    """Convert a measured edge time to the 0-100 % ramp time of the trapezoid.
+
+    Parameters
+    ----------
+    edge_s : float
+        Edge time between the thresholds of ``convention`` [s].
+    convention : {"10-90", "20-80", "0-100"}
+        Thresholds the edge time was measured between.
+
+    Returns
+    -------
+    float
+        Full linear-ramp time [s].
+    """
+    return edge_s / EDGE_FRACTION[convention]
+
+
+@dataclass(frozen=True)
+class Trapezoid:
+    """A periodic trapezoidal waveform from 0 to ``swing_v``.
+
+    Parameters
+    ----------
+    frequency_hz : float
+        Repetition frequency f0 = 1/T [Hz].
+    swing_v : float
+        Low-to-high amplitude A [V] (or [A] when used for a current).
+    duty : float
+        Width between the 50 % crossings over the period, 0 < duty < 1.
+    rise_s, fall_s : float
+        0-100 % linear ramp times [s].
+    """
+
+    frequency_hz: float
+    swing_v: float
+    duty: float
+    rise_s: float
+    fall_s: float
+
+    def __post_init__(self) -> None:
+        if not self.frequency_hz > 0:
+            raise WaveformError(f"frequency must be > 0 Hz, got {self.frequency_hz}")
+        if not 0 < self.duty < 1:
+            raise WaveformError(f"duty cycle must be between 0 and 1 (exclusive), got {self.duty}")
+        if not (self.rise_s >= 0 and self.fall_s >= 0):
+            raise WaveformError("rise and fall times must be >= 0 s")
+        # The ramps are centred on the 50 % crossings, so half of each edge lies
+        # in the high time and half in the low time: the two half-edges must fit.
+        period = 1.0 / self.frequency_hz
+        room = min(self.duty, 1.0 - self.duty) * period
+        if 0.5 * (self.rise_s + self.fall_s) > room * (1 + 1e-12):
+            raise WaveformError(
+                f"(rise + fall)/2 = {0.5 * (self.rise_s + self.fall_s):.4g} s does not fit in the "
+                f"shorter of the high and low times ({room:.4g} s)"
+            )
+
+    @property
+    def period_s(self) -> float:
+        return 1.0 / self.frequency_hz
+
+    @property
+    def width_s(self) -> float:
+        """Pulse width tau between the 50 % crossings [s]."""
+        return self.duty * self.period_s
+
+
+def _is_integer(x: np.ndarray) -> np.ndarray:
+    return np.abs(x - np.round(x)) <= 1e-9 * np.maximum(1.0, np.abs(x))
+
+
+def harmonic_amplitudes(wave: Trapezoid, n: np.ndarray) -> np.ndarray:
+    """Exact peak amplitude of harmonic ``n`` of a trapezoid with unequal edges.
+
+    c_n = (A / (n pi)) |sinc(n tr/T) - exp(-j 2 pi n tau/T) sinc(n tf/T)|,
+    with sinc(x) = sin(pi x)/(pi x).  For tr = tf this is the textbook
+    2 A (tau/T) |sinc(n tau/T)| |sinc(n tr/T)|.
+
+    Parameters
+    ----------
+    wave : Trapezoid
+    n : array_like of int
+        Harmonic numbers, n >= 1.
+
+    Returns
+    -------
+    numpy.ndarray
+        Peak amplitudes [V].  Harmonics on a null of the spectrum (n tau/T or
+        both n tr/T and n tf/T integer) are exact zeros, not rounding residue.
+
+    References
+    ----------
+    Paul (2006), sec. 3.2.  Derivation: the derivative of the waveform is a
+    rectangular pulse A/tr over the rise and -A/tf over the fall; divide its
+    Fourier coefficients by j n w0.
+    """
+    n = np.asarray(n, dtype=float)
+    if np.any(n < 1):
+        raise ValueError("harmonic numbers start at 1")
+    x_rise = n * wave.rise_s * wave.frequency_hz
+    x_fall = n * wave.fall_s * wave.frequency_hz
+    x_duty = n * wave.duty
+    sinc_rise = np.sinc(x_rise)
+    sinc_fall = np.sinc(x_fall)
+    amplitude = (wave.swing_v / (np.pi * n)) * np.abs(
+        sinc_rise - np.exp(-2j * np.pi * x_duty) * sinc_fall
+    )
+    both_edges_null = _is_integer(x_rise) & _is_integer(x_fall) & (x_rise > 0) & (x_fall > 0)
+    duty_null = _is_integer(x_duty) & np.isclose(sinc_rise, sinc_fall, rtol=1e-12, atol=1e-15)
+    return np.where(both_edges_null | duty_null, 0.0, amplitude)
+
+
+def corner_frequencies(wave: Trapezoid) -> tuple[float, float]:
+    """Corner frequencies of the spectral envelope [Hz].
+
+    Returns
+    -------
+    (f1, f2) : tuple of float
+        f1 = 1/(pi tau) where the envelope turns from flat to -20 dB/decade,
+        f2 = 1/(pi tr) where it turns to -40 dB/decade (the faster edge).
+        tau is the shorter of the high and low times, since a duty cycle D and
+        1 - D give the same harmonic amplitudes.
+
+    References
+    ----------
+    Paul (2006), sec. 3.2, the bounds on the trapezoid spectrum.
+    """
+    tau = min(wave.duty, 1.0 - wave.duty) * wave.period_s
+    edge = min(wave.rise_s, wave.fall_s)
+    return 1.0 / (np.pi * tau), (np.inf if edge == 0 else 1.0 / (np.pi * edge))
+
+
+def envelope(wave: Trapezoid, frequency_hz: np.ndarray) -> np.ndarray:
+    """Bounding envelope of the harmonic peak amplitudes [V].
+
+    Flat at 2 A tau/T below f1, 2 A/(pi T f) between f1 and f2, and
+    2 A/(pi^2 T tr f^2) above f2.
+
+    References
+    ----------
+    Paul (2006), sec. 3.2.
+    """
+    f = np.asarray(frequency_hz, dtype=float)
+    f1, f2 = corner_frequencies(wave)
+    a, t = wave.swing_v, wave.period_s
+    flat = 2 * a / (np.pi * t * f1)  # = 2 A tau / T
+    level = np.minimum(flat, 2 * a / (np.pi * t * f))
+    if np.isfinite(f2):
+        level = np.minimum(level, 2 * a / (np.pi * t * f) * (f2 / f))
+    return level
+
+
+def rms(peak: np.ndarray) -> np.ndarray:
+    """RMS of a sinusoid of the given peak amplitude: what a receiver reads."""
+    return np.asarray(peak) / np.sqrt(2.0)
+
+
+def load_current(
+    voltage: np.ndarray,
+    frequency_hz: np.ndarray,
+    resistance_ohm: float | None = None,
+    capacitance_f: float | None = None,
+) -> np.ndarray:
+    """Current drawn by a resistive, capacitive or series R-C load.
+
+    I = V / (R + 1/(j 2 pi f C)); a missing R or C is left out of the series.
+
+    Parameters
+    ----------
+    voltage : array_like
+        Voltage harmonic amplitudes [V] (peak or RMS; the result is the same kind).
+    frequency_hz : array_like
+        Frequencies [Hz].
+    resistance_ohm, capacitance_f : float, optional
+        Series load elements [ohm], [F]; at least one is required.
+
+    Returns
+    -------
+    numpy.ndarray
+        Current magnitudes [A].
+    """
+    if resistance_ohm is None and capacitance_f is None:
+        raise ValueError("a load needs a resistance, a capacitance or both")
+    omega = 2 * np.pi * np.asarray(frequency_hz, dtype=float)
+    impedance = np.zeros_like(omega, dtype=complex)
+    if resistance_ohm is not None:
+        impedance = impedance + resistance_ohm
+    if capacitance_f is not None:
+        impedance = impedance + 1.0 / (1j * omega * capacitance_f)
+    return np.abs(np.asarray(voltage) / impedance)
+
+
+def triangle_pulse_amplitudes(
+    peak_a: float,
+    width_s: float,
+    frequency_hz: float,
+    n: np.ndarray,
+    per: str = "cycle",
+    duty: float = 0.5,
+) -> np.ndarray:
+    """Harmonics of a train of triangular current pulses (supply-pin current).
+
+    Each pulse rises linearly to ``peak_a`` and falls back over a base width
+    ``width_s``: a trapezoid with zero flat top (tau = tr = tf = width/2),
+    so c_n = 2 Ip (w / 2T) sinc^2(n w / 2T) at one pulse per cycle.  With one
+    pulse per edge the second pulse sits at the falling edge, a delay of
+    duty * T, which multiplies the line spectrum by |1 + exp(-j 2 pi n D)|.
+
+    Parameters
+    ----------
+    peak_a : float
+        Peak current of each pulse [A].
+    width_s : float
+        Base width of each pulse [s].
+    frequency_hz : float
+        Clock frequency [Hz].
+    n : array_like of int
+        Harmonic numbers of the clock frequency.
+    per : {"cycle", "edge"}
+        One pulse per clock cycle or one per clock edge.
+    duty : float
+        Clock duty cycle, placing the falling-edge pulse (``per="edge"``).
+
+    Returns
+    -------
+    numpy.ndarray
+        Peak amplitudes [A] at n f0.
+
+    References
+    ----------
+    Paul (2006), sec. 3.2, trapezoid spectrum with tau = tr.
+    """
+    if per not in ("cycle", "edge"):
+        raise ValueError(f"per must be 'cycle' or 'edge', got {per!r}")
+    spacing = (min(duty, 1 - duty) if per == "edge" else 1.0) / frequency_hz
+    if not 0 < width_s <= spacing * (1 + 1e-12):
+        raise WaveformError(
+            f"pulse width must be > 0 s and fit between successive pulses ({spacing:.4g} s)"
+        )
+    half = 0.5 * width_s
+    single = harmonic_amplitudes(Trapezoid(frequency_hz, peak_a, half * frequency_hz, half, half), n)
+    if per == "cycle":
+        return single
+    x = np.asarray(n, dtype=float) * duty
+    pair = np.abs(1.0 + np.exp(-2j * np.pi * x))
+    return np.where(_is_integer(x - 0.5), 0.0, single * pair)

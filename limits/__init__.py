@@ -1,0 +1,1 @@
+"""Bundled limit lines, one TOML file each (installed as package data of emispec)."""
