@@ -76,7 +76,7 @@ def _unit_scale(unit: str, dimension: str) -> float | None:
         return {"%": 0.01, "": 1.0}.get(unit)
     if dimension == "decibel":
         return 1.0 if unit in ("dB", "") else None
-    if unit in spellings:  # "m" is the metre, not a milli prefix
+    if unit == "" or unit in spellings:  # plain SI number; "m" is the metre, not milli
         return 1.0
     for spelling in spellings:
         if unit.endswith(spelling):

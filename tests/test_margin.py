@@ -1,0 +1,129 @@
+"""The pipeline from board to rows, checked against hand calculations from the published formulas."""
+
+import numpy as np
+import pytest
+
+from emispec.board import load_board
+from emispec.coupling import loop_field
+from emispec.margin import estimate
+from emispec.units import db_micro
+from emispec.waveform import Trapezoid, harmonic_amplitudes
+
+TRANSFER_BOARD = """\
+title = "transfer check"
+guard_band = "6 dB"
+limit = "cispr32-class-b-conducted-mains"
+
+[[clock]]
+name = "sw"
+frequency = "500 kHz"
+rise_time = "20 ns"
+edge = "0-100"
+swing = "12 V"
+paths = ["probe"]
+
+[[path]]
+name = "probe"
+kind = "transfer"
+input = "voltage"
+gain = [["100 kHz", -70.0], ["100 MHz", -70.0]]
+"""
+
+
+def test_transfer_reading_is_line_level_plus_gain(write_board):
+    # Source: Paul 2006 sec. 3.2 trapezoid levels (via harmonic_amplitudes, checked against FFT elsewhere);
+    # transfer gain applied in dB per SPEC 2.6; limit per CISPR 32 Table A.10
+    est = estimate(load_board(write_board(TRANSFER_BOARD)))
+    rows = est.rows
+    assert set(rows.harmonic) == set(range(1, 61))  # 0.5 .. 30 MHz
+    wave = Trapezoid(500e3, 12.0, 0.5, 20e-9, 20e-9)
+    line = db_micro(harmonic_amplitudes(wave, rows.harmonic) / np.sqrt(2))
+    np.testing.assert_allclose(rows.line_dbuv, line, equal_nan=True)
+    np.testing.assert_allclose(rows.readings["QP"], line - 70.0, equal_nan=True)
+    np.testing.assert_allclose(rows.margins["AV"], rows.limits["AV"] - rows.readings["AV"], equal_nan=True)
+    # fundamental at 500 kHz: QP limit 56 dBuV (the lower value at the boundary)
+    first = np.flatnonzero(rows.harmonic == 1)[0]
+    assert rows.limits["QP"][first] == pytest.approx(56.0)
+    # even harmonics of a 50 % clock are spectral nulls: null readings, sorted last, flagged
+    even = rows.harmonic % 2 == 0
+    assert np.all(np.isnan(rows.readings["QP"][even]))
+    assert np.all(rows.flags["spectral-null"][even])
+    assert np.all(np.isnan(rows.worst_margin_db[-int(even.sum()):]))
+
+
+def test_rows_are_sorted_worst_first_and_flags_follow_the_guard_band(write_board):
+    est = estimate(load_board(write_board(TRANSFER_BOARD)))
+    worst = est.rows.worst_margin_db
+    finite = worst[np.isfinite(worst)]
+    assert np.all(np.diff(finite) >= 0)
+    over = est.rows.flags["over-limit"]
+    guard = est.rows.flags["within-guard-band"]
+    assert np.array_equal(over, np.nan_to_num(worst, nan=1e9) < 0)
+    assert np.array_equal(guard, (np.nan_to_num(worst, nan=1e9) >= 0) & (np.nan_to_num(worst, nan=1e9) < 6))
+    assert est.over_limit == over.sum() and est.verdict().startswith(("FAILS", "MARGINAL", "MEETS"))
+
+
+LOOP_BOARD = """\
+title = "loop check"
+limit = "cispr32-class-b-radiated-10m"
+guard_band = 3
+
+[[clock]]
+name = "c"
+frequency = "40 MHz"
+rise_time = "2 ns"
+fall_time = "3 ns"
+duty_cycle = "40 %"
+swing = "3.3 V"
+load = { resistance = "50 ohm" }
+paths = ["a", "b"]
+
+[[path]]
+name = "a"
+kind = "loop"
+area = "2 cm2"
+
+[[path]]
+name = "b"
+kind = "loop"
+area = "1 cm2"
+ground_reflection = false
+distance = "1 m"
+"""
+
+
+def test_loop_paths_combine_as_a_power_sum(write_board):
+    # Source: Paul 2006 sec. 8.1.2 loop formula; power sum of paths with unknown relative phase
+    est = estimate(load_board(write_board(LOOP_BOARD)))
+    rows = est.rows
+    order = np.argsort(rows.harmonic)
+    n = rows.harmonic[order]
+    f = n * 40e6
+    assert f[0] == 40e6 and f[-1] == 1e9  # 30 MHz .. 1 GHz (CISPR 32 upper frequency for Fx <= 108 MHz)
+    wave = Trapezoid(40e6, 3.3, 0.4, 2e-9 / 0.8, 3e-9 / 0.8)
+    i = harmonic_amplitudes(wave, n) / np.sqrt(2) / 50.0
+    e_a = loop_field(f, i, 2e-4, 10.0, True)
+    e_b = loop_field(f, i, 1e-4, 10.0, False)  # referred to the limit's 10 m; 1 m only sets the near-field check
+    np.testing.assert_allclose(rows.path_readings["a"]["QP"][order], db_micro(e_a), rtol=1e-12)
+    np.testing.assert_allclose(rows.path_readings["b"]["QP"][order], db_micro(e_b), rtol=1e-12)
+    np.testing.assert_allclose(rows.readings["QP"][order], db_micro(np.hypot(e_a, e_b)), rtol=1e-12)
+    np.testing.assert_allclose(rows.line_dbua[order], db_micro(i), rtol=1e-12)
+    # r = 1 m is inside lambda/2 pi below 47.7 MHz: only the 40 MHz fundamental is near field
+    assert set(rows.harmonic[rows.flags["near-field"]]) == {1}
+
+
+def test_board_max_frequency_caps_the_span(write_board):
+    text = LOOP_BOARD.replace('guard_band = 3', 'guard_band = 3\nmax_frequency = "200 MHz"')
+    est = estimate(load_board(write_board(text)))
+    assert est.rows.frequency_hz.max() == 200e6
+
+
+def test_fcc_limit_extends_the_span_for_fast_clocks(write_board):
+    # Source: 47 CFR 15.33(b)(1): highest internal frequency 108-500 MHz -> measure to 2 GHz
+    text = LOOP_BOARD.replace("cispr32-class-b-radiated-10m", "fcc15-class-b-radiated-3m").replace(
+        '"40 MHz"', '"125 MHz"').replace('duty_cycle = "40 %"', "")
+    est = estimate(load_board(write_board(text)))
+    assert est.span_hz[1] == 2e9
+    assert est.rows.frequency_hz.max() == 2e9
+    above = est.rows.frequency_hz > 1e9
+    assert np.all(np.isfinite(est.rows.limits["AV"][above])) and np.all(np.isnan(est.rows.limits["QP"][above]))

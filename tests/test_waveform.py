@@ -1,0 +1,200 @@
+"""Trapezoid and triangle spectra against numpy's FFT of the sampled waveform."""
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy import signal
+
+from emispec.waveform import (
+    Trapezoid,
+    WaveformError,
+    corner_frequencies,
+    envelope,
+    full_edge_time,
+    harmonic_amplitudes,
+    load_current,
+    rms,
+    triangle_pulse_amplitudes,
+)
+
+
+def sampled_trapezoid(wave: Trapezoid, samples: int = 2**18) -> np.ndarray:
+    """One period of the waveform sampled on a fine grid, built from its corners.
+
+    The rise is centred on t = 0 and the fall on t = tau (50 % crossings), as
+    in the model; np.interp draws the straight segments between the corners.
+    """
+    t_period = wave.period_s
+    tr, tf, tau, a = wave.rise_s, wave.fall_s, wave.width_s, wave.swing_v
+    corners_t = [-tr / 2, tr / 2, tau - tf / 2, tau + tf / 2, t_period - tr / 2]
+    corners_v = [0.0, a, a, 0.0, 0.0]
+    t = np.arange(samples) * t_period / samples - tr / 2
+    return np.interp(t, corners_t, corners_v)
+
+
+def fft_amplitudes(samples: np.ndarray, n_max: int) -> np.ndarray:
+    """One-sided peak amplitudes of harmonics 1..n_max from numpy's FFT."""
+    spectrum = np.fft.rfft(samples) / len(samples)
+    return 2 * np.abs(spectrum[1 : n_max + 1])
+
+
+@pytest.mark.parametrize(
+    "duty, rise, fall",
+    [(0.5, 5e-9, 5e-9), (0.5, 2e-9, 6e-9), (0.3, 3e-9, 1e-9), (0.72, 10e-9, 4e-9), (0.1, 1e-9, 1e-9)],
+)
+def test_harmonics_equal_fft_of_sampled_waveform(duty, rise, fall):
+    # Source: independent reference, numpy.fft of the finely sampled trapezoid
+    wave = Trapezoid(10e6, 5.0, duty, rise, fall)
+    n = np.arange(1, 61)
+    reference = fft_amplitudes(sampled_trapezoid(wave), 60)
+    assert np.max(np.abs(harmonic_amplitudes(wave, n) - reference)) < 1e-8 * wave.swing_v
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    duty=st.floats(0.05, 0.95),
+    rise_fraction=st.floats(0.001, 0.2),
+    fall_fraction=st.floats(0.001, 0.2),
+)
+def test_harmonics_equal_fft_for_random_trapezoids(duty, rise_fraction, fall_fraction):
+    # Source: independent reference, numpy.fft of the finely sampled trapezoid
+    room = 2 * min(duty, 1 - duty)
+    rise, fall = rise_fraction * room * 100e-9, fall_fraction * room * 100e-9
+    wave = Trapezoid(10e6, 1.0, duty, rise, fall)
+    reference = fft_amplitudes(sampled_trapezoid(wave, 2**16), 30)
+    assert np.max(np.abs(harmonic_amplitudes(wave, np.arange(1, 31)) - reference)) < 1e-6
+
+
+def test_ideal_square_wave_is_2a_over_n_pi():
+    # Source: Fourier series of the square wave, c_n = 2A/(n pi) for odd n (Paul 2006, sec. 3.2)
+    wave = Trapezoid(1e6, 1.0, 0.5, 0.0, 0.0)
+    n = np.arange(1, 20)
+    expected = np.where(n % 2 == 1, 2 / (n * np.pi), 0.0)
+    np.testing.assert_allclose(harmonic_amplitudes(wave, n), expected, atol=1e-15)
+    assert harmonic_amplitudes(wave, [1])[0] == pytest.approx(0.637, abs=5e-4)
+    assert harmonic_amplitudes(wave, [3])[0] == pytest.approx(0.212, abs=5e-4)
+
+
+def test_equal_edges_reduce_to_the_textbook_sinc_sinc_form():
+    # Source: Paul 2006, sec. 3.2: c_n = 2 A (tau/T) |sinc(n tau/T)| |sinc(n tr/T)|
+    wave = Trapezoid(10e6, 5.0, 0.5, 5e-9, 5e-9)
+    n = np.arange(1, 40)
+    textbook = 2 * 5.0 * 0.5 * np.abs(np.sinc(n * 0.5)) * np.abs(np.sinc(n * 0.05))
+    np.testing.assert_allclose(harmonic_amplitudes(wave, n), textbook, rtol=1e-12, atol=1e-15)
+
+
+def test_sinc_nulls_are_exact_zeros():
+    # Source: Paul 2006, sec. 3.2: nulls at n tau/T and n tr/T integer
+    even = harmonic_amplitudes(Trapezoid(10e6, 5.0, 0.5, 5e-9, 5e-9), np.arange(2, 40, 2))
+    assert np.all(even == 0.0)
+    edge_null = harmonic_amplitudes(Trapezoid(10e6, 5.0, 0.5, 20e-9, 20e-9), [5, 10])
+    assert np.all(edge_null == 0.0)  # 5 * 20 ns / 100 ns = 1
+    # unequal edges at 50 % duty: even harmonics appear
+    assert harmonic_amplitudes(Trapezoid(10e6, 5.0, 0.5, 2e-9, 6e-9), [2])[0] > 0
+
+
+def test_rms_is_peak_over_root_two():
+    # Source: RMS of a sinusoid; CISPR 16-1-1 calibrates detectors with a CW sine's RMS
+    assert 20 * np.log10(rms(1.0)) == pytest.approx(-3.0103, abs=1e-4)
+
+
+@pytest.mark.parametrize("convention, fraction", [("10-90", 0.8), ("20-80", 0.6), ("0-100", 1.0)])
+def test_edge_time_conventions_for_a_linear_ramp(convention, fraction):
+    # Source: geometry of a linear ramp: t(10-90) = 0.8 t(0-100), t(20-80) = 0.6 t(0-100)
+    assert full_edge_time(1e-9, convention) == pytest.approx(1e-9 / fraction)
+
+
+def test_envelope_corners():
+    # Source: Paul 2006, sec. 3.2: f1 = 1/(pi tau), f2 = 1/(pi tr)
+    wave = Trapezoid(10e6, 5.0, 0.5, 5e-9, 5e-9)
+    f1, f2 = corner_frequencies(wave)
+    assert f1 == pytest.approx(1 / (np.pi * 50e-9))
+    assert f2 == pytest.approx(1 / (np.pi * 5e-9))
+    # slopes: 0 below f1, -20 dB/decade between, -40 dB/decade above f2
+    level = 20 * np.log10(envelope(wave, np.array([f1 / 100, f1 / 10, 1.2 * f1, 8 * f1, 2 * f2, 20 * f2])))
+    assert level[0] == pytest.approx(level[1])
+    assert level[2] - level[3] == pytest.approx(20 * np.log10(8 / 1.2))
+    assert level[4] - level[5] == pytest.approx(40.0)
+    assert level[0] == pytest.approx(20 * np.log10(2 * 5.0 * 0.5))  # 2 A tau / T
+
+
+def test_envelope_bounds_every_harmonic():
+    # Source: Paul 2006, sec. 3.2 (the envelope is an upper bound)
+    wave = Trapezoid(33e6, 3.3, 0.37, 1.1e-9, 2.3e-9)
+    n = np.arange(1, 400)
+    assert np.all(harmonic_amplitudes(wave, n) <= envelope(wave, n * 33e6) * (1 + 1e-12))
+
+
+def test_faster_edge_sets_the_second_corner():
+    # Source: Paul 2006, sec. 3.2 (bound with the faster edge)
+    assert corner_frequencies(Trapezoid(10e6, 1, 0.5, 2e-9, 6e-9))[1] == pytest.approx(1 / (np.pi * 2e-9))
+
+
+@pytest.mark.parametrize(
+    "kwargs",
+    [dict(duty=0.0), dict(duty=1.0), dict(rise_s=60e-9, fall_s=60e-9), dict(duty=0.2, rise_s=25e-9, fall_s=20e-9),
+     dict(frequency_hz=0.0), dict(rise_s=-1e-9)],
+)
+def test_invalid_trapezoids_are_refused(kwargs):
+    base = dict(frequency_hz=10e6, swing_v=1.0, duty=0.5, rise_s=1e-9, fall_s=1e-9)
+    with pytest.raises(WaveformError):
+        Trapezoid(**{**base, **kwargs})
+
+
+def test_edges_exactly_filling_the_high_time_are_allowed():
+    # a triangle wave: (tr + tf) / 2 equals the high time
+    Trapezoid(10e6, 1.0, 0.5, 50e-9, 50e-9)
+
+
+def test_load_currents_match_scipy_frequency_response():
+    # Source: independent reference, scipy.signal.freqs of the load admittance
+    f = np.geomspace(1e6, 1e9, 50)
+    w = 2 * np.pi * f
+    v = np.ones_like(f)
+    r, c = 33.0, 10e-12
+    _, series = signal.freqs([c, 0.0], [r * c, 1.0], worN=w)  # Y = sC / (1 + sRC)
+    np.testing.assert_allclose(load_current(v, f, r, c), np.abs(series), rtol=1e-10)
+    _, cap = signal.freqs([c, 0.0], [1.0], worN=w)  # Y = sC
+    np.testing.assert_allclose(load_current(v, f, capacitance_f=c), np.abs(cap), rtol=1e-10)
+    np.testing.assert_allclose(load_current(v, f, resistance_ohm=50.0), v / 50.0)
+    with pytest.raises(ValueError):
+        load_current(v, f)
+
+
+def sampled_pulses(peak, width, f0, duty, per, samples=2**18):
+    t = np.arange(samples) / samples / f0
+    centres = [width / 2] + ([duty / f0 + width / 2] if per == "edge" else [])
+    wave = np.zeros(samples)
+    for c in centres:
+        wave += np.interp(t, [c - width / 2, c, c + width / 2], [0.0, peak, 0.0], left=0.0, right=0.0)
+    return wave
+
+
+@pytest.mark.parametrize("per, duty", [("cycle", 0.5), ("edge", 0.5), ("edge", 0.4)])
+def test_triangle_pulses_equal_fft(per, duty):
+    # Source: independent reference, numpy.fft of the sampled pulse train
+    f0, peak, width = 50e6, 1.5, 0.8e-9
+    n = np.arange(1, 81)
+    reference = fft_amplitudes(sampled_pulses(peak, width, f0, duty, per), 80)
+    ours = triangle_pulse_amplitudes(peak, width, f0, n, per=per, duty=duty)
+    assert np.max(np.abs(ours - reference)) < 1e-8
+
+
+def test_triangle_pulses_per_edge_at_half_duty_have_only_even_harmonics():
+    # Source: two equal pulses half a period apart repeat at 2 f0
+    odd = triangle_pulse_amplitudes(1.0, 1e-9, 50e6, np.arange(1, 40, 2), per="edge")
+    assert np.all(odd == 0.0)
+
+
+def test_triangle_pulse_dc_limit():
+    # Source: the mean of a triangle train is Ip w / (2T); low harmonics tend to twice that
+    c1 = triangle_pulse_amplitudes(2.0, 1e-9, 1e6, [1])[0]
+    assert c1 == pytest.approx(2 * 2.0 * 1e-9 / 2 * 1e6, rel=1e-6)
+
+
+def test_triangle_pulse_too_wide_is_refused():
+    with pytest.raises(WaveformError):
+        triangle_pulse_amplitudes(1.0, 30e-9, 50e6, [1])
+    with pytest.raises(WaveformError):
+        triangle_pulse_amplitudes(1.0, 12e-9, 50e6, [1], per="edge")
