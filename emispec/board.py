@@ -107,19 +107,22 @@ class _Reader:
     def has(self, name: str) -> bool:
         return name in self.table
 
-    def quantity(self, name, dimension, default=None, low=None, high=None, low_open=True, required=False):
+    def quantity(self, name, dimension, default=None, low=None, high=None, low_open=True, required=False,
+                 high_open=False):
         if name not in self.table:
             if required:
-                raise self.error(name, f"missing; give a {dimension}" + _range(low, high, low_open, dimension))
+                raise self.error(name, f"missing; give a {dimension}" + _range(low, high, low_open, dimension,
+                                                                               high_open))
             return default
         raw = self.table[name]
         try:
             value = parse_quantity(raw, dimension)
         except QuantityError as err:
-            raise self.error(name, str(err) + _range(low, high, low_open, dimension), raw) from None
+            raise self.error(name, str(err) + _range(low, high, low_open, dimension, high_open), raw) from None
         too_low = low is not None and (value <= low if low_open else value < low)
-        if too_low or (high is not None and value > high):
-            raise self.error(name, "out of range" + _range(low, high, low_open, dimension), raw)
+        too_high = high is not None and (value >= high if high_open else value > high)
+        if too_low or too_high:
+            raise self.error(name, "out of range" + _range(low, high, low_open, dimension, high_open), raw)
         return value
 
     def choice(self, name, allowed, default=None):
@@ -145,13 +148,13 @@ class _Reader:
         return value
 
 
-def _range(low, high, low_open, dimension) -> str:
+def _range(low, high, low_open, dimension, high_open=False) -> str:
     if low is None and high is None:
         return ""
     unit = {"frequency": "Hz", "time": "s", "voltage": "V", "current": "A", "resistance": "ohm",
             "capacitance": "F", "length": "m", "area": "m2", "decibel": "dB", "ratio": ""}.get(dimension, "")
     lower = "" if low is None else f"{'>' if low_open else '>='} {low:g} {unit}".rstrip()
-    upper = "" if high is None else f"<= {high:g} {unit}".rstrip()
+    upper = "" if high is None else f"{'<' if high_open else '<='} {high:g} {unit}".rstrip()
     return "; allowed: " + " and ".join(part for part in (lower, upper) if part)
 
 
@@ -180,7 +183,8 @@ def _parse_limit(file: str, raw: object, base_dir: FilePath) -> Limit:
     except LimitError as err:
         if isinstance(raw, dict):
             raise BoardError(file, f"limit.{err.key}", err.problem) from None
-        raise BoardError(file, "limit", str(err), raw) from None
+        problem = err.problem if err.key == "limit" else str(err)
+        raise BoardError(file, "limit", problem, raw) from None
     raise BoardError(file, "limit", "expected a bundled limit name, a file path or an inline table", raw)
 
 
@@ -264,7 +268,7 @@ def _parse_clock(file: str, name: str, table: dict, paths: dict[str, Path]) -> C
         raise r.error("spread", "is not supported yet: spread-spectrum clocking comes with the receiver model")
     frequency = r.quantity("frequency", "frequency", low=0, high=100e9, required=True)
     swing = r.quantity("swing", "voltage", low=0, required=True)
-    duty = r.quantity("duty_cycle", "ratio", default=0.5, low=0, high=0.999999)
+    duty = r.quantity("duty_cycle", "ratio", default=0.5, low=0, high=1, high_open=True)
     edge = r.choice("edge", tuple(EDGE_FRACTION), "10-90")
     rise = full_edge_time(r.quantity("rise_time", "time", low=0, required=True), edge)
     fall = full_edge_time(r.quantity("fall_time", "time", low=0), edge) if r.has("fall_time") else rise
@@ -351,4 +355,5 @@ def _refuse_non_finite(file: str, node: object, key: str) -> None:
             _refuse_non_finite(file, v, f"{key}.{k}" if key else k)
     elif isinstance(node, list):
         for i, v in enumerate(node):
-            _refuse_non_finite(file, v, f"{key}[{i}]")
+            label = v.get("name") if isinstance(v, dict) and isinstance(v.get("name"), str) else i
+            _refuse_non_finite(file, v, f"{key}[{label}]")

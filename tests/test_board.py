@@ -1,0 +1,118 @@
+"""Malformed board files: each gives exit 2 and one line naming the file and the key."""
+
+import pytest
+
+from conftest import BASE_BOARD
+from emispec.board import BoardError, load_board
+from emispec.cli import app
+
+
+def replace(old, new):
+    assert old in BASE_BOARD
+    return BASE_BOARD.replace(old, new)
+
+
+MALFORMED = {
+    "rise in MHz": (replace('rise_time = "1 ns"', 'rise_time = "1.2 MHz"'), "clock[clk].rise_time"),
+    "negative rise": (replace('rise_time = "1 ns"', 'rise_time = "-1 ns"'), "clock[clk].rise_time"),
+    "edges do not fit": (replace('rise_time = "1 ns"', 'rise_time = "9 ns"'), "clock[clk].rise_time"),
+    "duty over 1": (replace('rise_time = "1 ns"', 'rise_time = "1 ns"\nduty_cycle = 1.5'), "clock[clk].duty_cycle"),
+    "duty 100 %": (replace('rise_time = "1 ns"', 'rise_time = "1 ns"\nduty_cycle = "100 %"'), "clock[clk].duty_cycle"),
+    "missing frequency": (replace('frequency = "50 MHz"\n', ""), "clock[clk].frequency"),
+    "zero frequency": (replace('"50 MHz"', '"0 Hz"'), "clock[clk].frequency"),
+    "unknown clock key": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nrisetime = "1 ns"'), "clock[clk].risetime"),
+    "unknown edge": (replace('rise_time = "1 ns"', 'rise_time = "1 ns"\nedge = "5-95"'), "clock[clk].edge"),
+    "unknown path": (replace('paths = ["loop1"]', 'paths = ["loop2"]'), "clock[clk].paths"),
+    "no paths": (replace('paths = ["loop1"]', "paths = []"), "clock[clk].paths"),
+    "duplicate clock": (BASE_BOARD + '\n[[clock]]\nname = "clk"\nfrequency = "1 MHz"\nrise_time = "1 ns"\n'
+                        'swing = "1 V"\npaths = ["loop1"]\nload = { resistance = "50 ohm" }\n', "clock[clk].name"),
+    "duplicate path": (BASE_BOARD + '\n[[path]]\nname = "loop1"\nkind = "loop"\narea = "1 cm2"\n', "path[loop1].name"),
+    "nan swing": (replace('swing = "3.3 V"', "swing = nan"), "clock[clk].swing"),
+    "inf area": (replace('area = "1 cm2"', "area = inf"), "path[loop1].area"),
+    "area as length": (replace('area = "1 cm2"', 'area = "1 cm"'), "path[loop1].area"),
+    "unknown path kind": (replace('kind = "loop"', 'kind = "slot"'), "path[loop1].kind"),
+    "unknown top key": ("colour = 3\n" + BASE_BOARD, "colour"),
+    "unknown limit": (replace('"cispr32-class-b-radiated-10m"', '"cispr99"'), "limit"),
+    "missing limit": (replace('limit = "cispr32-class-b-radiated-10m"\n', ""), "limit"),
+    "negative guard band": (replace('"6 dB"', '"-3 dB"'), "guard_band"),
+    "guard band in volts": (replace('"6 dB"', '"6 V"'), "guard_band"),
+    "loop needs a load": (replace('load = { resistance = "50 ohm" }\n', ""), "clock[clk].load"),
+    "empty load": (replace('load = { resistance = "50 ohm" }', "load = {}"), "clock[clk].load"),
+    "load with inductance": (replace('{ resistance = "50 ohm" }', '{ inductance = "1 nH" }'),
+                             "clock[clk].load.inductance"),
+    "loop on a conducted limit": (replace("cispr32-class-b-radiated-10m", "fcc15-class-b-conducted"),
+                                  "path[loop1].kind"),
+    "rail not yet": (BASE_BOARD + '\n[[rail]]\nname = "r"\nvoltage = "3.3 V"\n', "rail"),
+    "current not yet": (BASE_BOARD + '\n[[current]]\nname = "x"\n', "current"),
+    "spread not yet": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down" }'), "clock[clk].spread"),
+    "escape not yet": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\ndrive = "escape"\n',
+                       "path[h].drive"),
+    "conducted not yet": (replace("cispr32-class-b-radiated-10m", "fcc15-class-b-conducted").replace(
+        'kind = "loop"\narea = "1 cm2"', 'kind = "conducted"'), "path[loop1].kind"),
+    "cable ratio above 1": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\nratio = 3\n',
+                            "path[h].ratio"),
+    "cable ratio missing": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\n', "path[h].ratio"),
+    "transfer descending": (BASE_BOARD + '\n[[path]]\nname = "t"\nkind = "transfer"\ninput = "voltage"\n'
+                            'gain = [["1 GHz", 0.0], ["1 MHz", 0.0]]\n', "path[t].gain"),
+    "transfer bad input": (BASE_BOARD + '\n[[path]]\nname = "t"\nkind = "transfer"\ninput = "power"\n'
+                           'gain = [["1 MHz", 0.0]]\n', "path[t].input"),
+    "inline limit bad unit": (replace('limit = "cispr32-class-b-radiated-10m"', "").replace(
+        "[[clock]]", '[limit]\nmeasurement = "radiated"\ndistance = "3 m"\nunit = "V"\n'
+        'lines = { QP = [["30 MHz", 40.0], ["1 GHz", 40.0]] }\n\n[[clock]]', 1), "limit.unit"),
+    "not toml": ("title = \n", "toml"),
+    "clock without name": (replace('name = "clk"\n', ""), "clock[0].name"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(MALFORMED))
+def test_malformed_board_exits_2_naming_the_key(case, runner, write_board):
+    text, key = MALFORMED[case]
+    path = write_board(text)
+    result = runner.invoke(app, ["estimate", str(path)])
+    assert result.exit_code == 2, result.output
+    message = result.stderr.strip()
+    assert "\n" not in message and "Traceback" not in message
+    assert str(path) in message
+    assert f"{key}" in message
+    with pytest.raises(BoardError) as info:
+        load_board(path)
+    assert info.value.key == key
+
+
+def test_did_you_mean_for_a_misspelt_key(write_board):
+    path = write_board(BASE_BOARD.replace('swing = "3.3 V"', 'swing = "3.3 V"\nrise_tme = "1 ns"'))
+    with pytest.raises(BoardError, match="did you mean 'rise_time'"):
+        load_board(path)
+
+
+def test_missing_board_file(runner, tmp_path):
+    result = runner.invoke(app, ["estimate", str(tmp_path / "nope.toml")])
+    assert result.exit_code == 2 and "nope.toml" in result.stderr
+
+
+def test_inline_and_relative_limits(write_board, tmp_path):
+    (tmp_path / "mine.toml").write_text(
+        'measurement = "radiated"\ndistance = "3 m"\nunit = "dBuV/m"\nsource = "invented"\n'
+        '[lines]\nPK = [["30 MHz", 50.0], ["1 GHz", 50.0]]\n', encoding="utf-8")
+    relative = load_board(write_board(BASE_BOARD.replace('"cispr32-class-b-radiated-10m"', '"mine.toml"')))
+    assert relative.limit.detectors == ("PK",) and relative.limit.distance_m == 3.0
+    inline = load_board(write_board(BASE_BOARD.replace('limit = "cispr32-class-b-radiated-10m"', "").replace(
+        "[[clock]]", '[limit]\nmeasurement = "radiated"\ndistance = "10 m"\nunit = "dBuV/m"\n'
+        'lines = { QP = [["30 MHz", 40.0], ["1 GHz", 40.0]] }\n\n[[clock]]', 1)))
+    assert inline.limit.lines["QP"].level(1e8)[0] == 40.0
+
+
+def test_quantities_are_converted_to_si(write_board):
+    board = load_board(write_board(BASE_BOARD.replace('rise_time = "1 ns"', 'rise_time = "1.2 ns"\nedge = "20-80"\n'
+                                                                      'fall_time = "0.9 ns"\nduty_cycle = "45 %"')))
+    wave = board.clocks[0].wave
+    assert wave.rise_s == pytest.approx(1.2e-9 / 0.6) and wave.fall_s == pytest.approx(0.9e-9 / 0.6)
+    assert wave.duty == pytest.approx(0.45) and board.guard_band_db == 6.0
+    assert board.paths["loop1"].area_m2 == pytest.approx(1e-4)
+
+
+def test_cable_ratio_in_db_or_linear(write_board):
+    extra = '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\nratio = "-40 dB"\n' \
+            '\n[[path]]\nname = "g"\nkind = "cable"\nlength = "1 m"\nratio = 0.01\n'
+    board = load_board(write_board(BASE_BOARD + extra))
+    assert board.paths["h"].ratio == pytest.approx(0.01) and board.paths["g"].ratio == pytest.approx(0.01)

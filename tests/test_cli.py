@@ -1,0 +1,98 @@
+import json
+import subprocess
+import sys
+
+import pytest
+
+from conftest import REPO
+from emispec import cli
+from emispec.cli import app
+from emispec.report import CAUTION
+
+DEMO = REPO / "samples" / "beehive-gateway.toml"
+
+
+def test_estimate_prints_table_verdict_and_caution(runner):
+    result = runner.invoke(app, ["estimate", str(DEMO), "--rows", "5"])
+    assert result.exit_code == 0, result.output
+    out = " ".join(result.stdout.split())
+    assert "FAILS" in out and "over the limit" in out
+    assert "accredited lab" in out
+    assert "worst 5 of" in out
+
+
+def test_json_to_stdout_follows_the_schema(runner):
+    result = runner.invoke(app, ["estimate", str(DEMO), "--json", "-"])
+    assert result.exit_code == 0
+    data = json.loads(result.stdout)
+    assert data["schema"] == "emispec.result/1"
+    assert set(data) >= {"schema", "emispec_version", "board", "limit", "guard_band_db", "rows", "summary"}
+    assert data["limit"]["unit"] == "dBuV/m" and data["limit"]["detectors"] == ["QP", "AV", "PK"]
+    row = data["rows"][0]
+    assert set(row) >= {"source", "harmonic", "frequency_hz", "line_dbuv", "line_dbua", "paths", "readings",
+                        "limits", "margin_db", "worst_margin_db", "flags"}
+    assert row["worst_margin_db"] == data["summary"]["worst"]["worst_margin_db"]
+    assert "over-limit" in row["flags"]
+    assert row["margin_db"]["QP"] == pytest.approx(row["limits"]["QP"] - row["readings"]["QP"], abs=0.002)
+    assert "NaN" not in result.stdout and "Infinity" not in result.stdout
+
+
+def test_out_writes_all_artifacts(runner, tmp_path):
+    out = tmp_path / "out"
+    result = runner.invoke(app, ["estimate", str(DEMO), "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    names = sorted(p.name for p in out.iterdir())
+    assert names == ["estimate-spectrum.png", "estimate.csv", "estimate.json", "estimate.md"]
+    assert (out / "estimate-spectrum.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert CAUTION in (out / "estimate.md").read_text() and CAUTION in (out / "estimate.csv").read_text()
+
+
+def test_unwritable_out_leaves_nothing_and_exits_2(runner, tmp_path):
+    blocker = tmp_path / "file.txt"
+    blocker.write_text("keep me")
+    result = runner.invoke(app, ["estimate", str(DEMO), "--out", str(blocker / "sub")])
+    assert result.exit_code == 2
+    assert "cannot write" in result.stderr and "\n" not in result.stderr.strip()
+    assert blocker.read_text() == "keep me"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["file.txt"]
+
+
+def test_internal_error_exits_1_without_traceback(runner, monkeypatch):
+    def boom(board):
+        raise RuntimeError("kaput")
+
+    monkeypatch.setattr(cli, "run_estimate", boom)
+    result = runner.invoke(app, ["estimate", str(DEMO)])
+    assert result.exit_code == 1
+    assert "internal error" in result.stderr and "Traceback" not in result.stderr
+
+
+def test_limits_lists_every_bundled_limit(runner):
+    result = runner.invoke(app, ["limits"])
+    assert result.exit_code == 0
+    for name in ("cispr32-class-b-radiated-10m", "fcc15-class-b-radiated-3m", "cispr32-class-a-conducted-mains"):
+        assert name in result.stdout
+    shown = runner.invoke(app, ["limits", "fcc15-class-b-radiated-3m"])
+    assert shown.exit_code == 0 and "15.109(a)" in shown.stdout
+
+
+def test_limits_unknown_name_exits_2(runner):
+    result = runner.invoke(app, ["limits", "no-such-limit"])
+    assert result.exit_code == 2
+
+
+def test_real_subprocess_help_names_the_caution():
+    done = subprocess.run([sys.executable, "-m", "emispec", "estimate", "--help"], capture_output=True, text=True,
+                          check=False)
+    assert done.returncode == 0
+    top = subprocess.run([sys.executable, "-m", "emispec", "--help"], capture_output=True, text=True, check=False)
+    assert "accredited lab" in " ".join(top.stdout.split())
+
+
+def test_real_subprocess_bad_input_exits_2(tmp_path):
+    bad = tmp_path / "bad.toml"
+    bad.write_text('limit = "cispr32-class-b-radiated-10m"\n[[clock]]\nname = "c"\nfrequency = "1 ns"\n')
+    done = subprocess.run([sys.executable, "-m", "emispec", "estimate", str(bad)], capture_output=True, text=True,
+                          check=False)
+    assert done.returncode == 2
+    assert done.stderr.count("\n") == 1 and "clock[c].frequency" in done.stderr

@@ -1,0 +1,83 @@
+import json
+import math
+
+import numpy as np
+import pytest
+
+from conftest import REPO
+from emispec import report
+from emispec.board import load_board
+from emispec.margin import estimate
+from emispec.report import atomic_write, csv_text, markdown_text, result_dict
+
+
+@pytest.fixture(scope="module")
+def demo():
+    return estimate(load_board(REPO / "samples" / "beehive-gateway.toml"))
+
+
+def test_json_rows_match_the_columns(demo):
+    data = result_dict(demo)
+    assert len(data["rows"]) == len(demo.rows) == data["summary"]["rows"]
+    for i, row in enumerate(data["rows"][:20]):
+        assert row["frequency_hz"] == pytest.approx(row["harmonic"] * {"mcu_clk": 24e6, "sdram_clk": 100e6,
+                                                                      "eth_ref": 25e6, "lcd_pclk": 9e6}[row["source"]])
+        assert set(row["paths"]) == set(demo.source_paths[row["source"]])
+        worst = min(row["margin_db"].values())
+        assert row["worst_margin_db"] == pytest.approx(worst, abs=1e-9)
+    json.dumps(data, allow_nan=False)  # no NaN or infinity anywhere
+
+
+def test_nulls_are_null_not_nan(demo):
+    data = result_dict(demo)
+    nulls = [row for row in data["rows"] if "spectral-null" in row["flags"]]
+    assert nulls, "the demo's 50 % clocks have even-harmonic nulls"
+    for row in nulls:
+        assert row["line_dbuv"] is None and row["worst_margin_db"] is None
+        assert all(v is None for v in row["readings"].values())
+    assert data["summary"]["over_limit"] == demo.over_limit
+
+
+def test_csv_and_markdown_carry_every_row_and_the_caution(demo):
+    text = csv_text(demo)
+    data_lines = [line for line in text.splitlines() if not line.startswith("#")]
+    assert len(data_lines) == len(demo.rows) + 1
+    assert "null" in text and "nan" not in text.lower().replace("null", "")
+    md = markdown_text(demo, count=10)
+    assert report.CAUTION in md and md.count("\n| ") >= 10
+
+
+def test_markdown_escapes_user_text(demo):
+    from dataclasses import replace
+
+    evil = replace(demo, board=replace(demo.board, title="<b>x</b> | y"))
+    md = markdown_text(evil)
+    assert "<b>" not in md and "\\|" in md
+
+
+def test_atomic_write_keeps_the_old_file_when_the_rename_fails(tmp_path, monkeypatch):
+    target = tmp_path / "result.json"
+    target.write_text("old")
+
+    def refuse(src, dst):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(report.os, "replace", refuse)
+    with pytest.raises(OSError):
+        atomic_write(target, "new")
+    assert target.read_text() == "old"
+    assert [p.name for p in tmp_path.iterdir()] == ["result.json"]
+
+
+def test_atomic_write_replaces(tmp_path):
+    target = tmp_path / "a.txt"
+    atomic_write(target, "one")
+    atomic_write(target, "two")
+    assert target.read_text() == "two" and len(list(tmp_path.iterdir())) == 1
+
+
+def test_summary_worst_is_first_row(demo):
+    data = result_dict(demo)
+    first = data["rows"][0]
+    assert data["summary"]["worst"]["frequency_hz"] == first["frequency_hz"]
+    assert math.isclose(data["summary"]["worst"]["worst_margin_db"], np.nanmin(demo.rows.worst_margin_db), abs_tol=1e-3)
