@@ -104,7 +104,7 @@ def _print_table(result, count: int) -> None:
     for name, justify in (("source", "left"), ("n", "right"), ("MHz", "right"), ("band", "left"),
                           ("det", "left"), ("read", "right"), ("limit", "right"),
                           ("margin dB", "right"), ("flags", "left")):
-        table.add_column(name, justify=justify, no_wrap=name != "flags", min_width=12 if name == "flags" else None)
+        table.add_column(name, justify=justify, no_wrap=name != "flags", overflow="fold", min_width=10 if name == "flags" else None)
     bands = band_names(rows.frequency_hz[:shown])
     for i in range(shown):
         det = rows.worst_detector[i]
@@ -114,7 +114,7 @@ def _print_table(result, count: int) -> None:
         table.add_row(
             str(rows.source[i]), str(rows.harmonic[i]), f"{rows.frequency_hz[i] / 1e6:.6g}", str(bands[i]),
             det or "-", _fmt(reading), _fmt(limit), f"[{_margin_style(margin, board.guard_band_db)}]{_fmt(margin)}[/]",
-            ", ".join(rows.flag_list(i)),
+            ", ".join(flag.replace("-", " ") for flag in rows.flag_list(i)),
         )
     out.print(table)
     verdict = result.verdict()

@@ -109,6 +109,7 @@ class Trapezoid:
 
 
 def _is_integer(x: np.ndarray) -> np.ndarray:
+    """True where x is an integer up to rounding of the products that made it."""
     return np.abs(x - np.round(x)) <= 1e-9 * np.maximum(1.0, np.abs(x))
 
 
@@ -138,19 +139,50 @@ def harmonic_amplitudes(wave: Trapezoid, n: np.ndarray) -> np.ndarray:
     Fourier coefficients by j n w0.
     """
     n = np.asarray(n, dtype=float)
-    if np.any(n < 1):
+    if n.size and n.min() < 1:
         raise ValueError("harmonic numbers start at 1")
-    x_rise = n * wave.rise_s * wave.frequency_hz
-    x_fall = n * wave.fall_s * wave.frequency_hz
-    x_duty = n * wave.duty
-    sinc_rise = np.sinc(x_rise)
-    sinc_fall = np.sinc(x_fall)
-    amplitude = (wave.swing_v / (np.pi * n)) * np.abs(
-        sinc_rise - np.exp(-2j * np.pi * x_duty) * sinc_fall
-    )
-    both_edges_null = _is_integer(x_rise) & _is_integer(x_fall) & (x_rise > 0) & (x_fall > 0)
-    duty_null = _is_integer(x_duty) & np.isclose(sinc_rise, sinc_fall, rtol=1e-12, atol=1e-15)
-    return np.where(both_edges_null | duty_null, 0.0, amplitude)
+    f0 = wave.frequency_hz
+    sinc_rise = _sinc_of_multiple(n, wave.rise_s * f0)
+    equal_edges = wave.rise_s == wave.fall_s
+    sinc_fall = sinc_rise if equal_edges else _sinc_of_multiple(n, wave.fall_s * f0)
+    half = np.sin(n * (np.pi * wave.duty))
+    half *= half  # sin^2(theta / 2), theta = 2 pi n tau / T
+    # |s_r - exp(-j theta) s_f|^2 = (s_r - s_f)^2 + 4 s_r s_f sin^2(theta/2)
+    #                             = (s_r + s_f)^2 - 4 s_r s_f cos^2(theta/2);
+    # take whichever is a sum of non-negative terms, so that harmonics near a
+    # null keep their relative accuracy.  In-place steps: this is the hot path.
+    cross = sinc_rise * sinc_fall
+    opposite = cross < 0
+    power = sinc_rise - sinc_fall
+    np.add(sinc_rise, sinc_fall, out=power, where=opposite)
+    weight = half
+    np.subtract(half, 1.0, out=weight, where=opposite)
+    power *= power
+    weight *= cross
+    weight *= 4.0
+    power += weight
+    amplitude = np.sqrt(power)
+    amplitude *= wave.swing_v / np.pi
+    amplitude /= n
+    # Exact nulls only need confirming where the power is already tiny.
+    maybe = np.flatnonzero(power < 1e-12)
+    if maybe.size:
+        m = n[maybe]
+        null = _is_integer(m * wave.duty) & np.isclose(sinc_rise[maybe], sinc_fall[maybe], rtol=1e-9, atol=1e-15)
+        if wave.rise_s > 0 and wave.fall_s > 0:
+            null |= _is_integer(m * (wave.rise_s * f0)) & _is_integer(m * (wave.fall_s * f0))
+        amplitude[maybe[null]] = 0.0
+    return amplitude
+
+
+def _sinc_of_multiple(n: np.ndarray, c: float) -> np.ndarray:
+    """sinc(n c) = sin(pi n c) / (pi n c) for n >= 1, c >= 0."""
+    if c == 0:
+        return np.ones_like(n)
+    x = n * (np.pi * c)
+    s = np.sin(x)
+    s /= x
+    return s
 
 
 def corner_frequencies(wave: Trapezoid) -> tuple[float, float]:
