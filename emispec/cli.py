@@ -136,14 +136,15 @@ def limits(name: Optional[str] = typer.Argument(None, help="Show this limit's po
             out.print(f"  {det}: {points}", markup=False)
         return
     table = Table(title="Bundled limits", title_style="bold")
-    for col in ("name", "measurement", "distance", "unit", "detectors", "MHz"):
+    table.add_column("name", no_wrap=True)
+    for col in ("measured", "unit", "detectors", "MHz"):
         table.add_column(col, no_wrap=True)
     sources = []
     for key in bundled_limits():
         limit = load_limit(key)
         lo, hi = limit.span_hz
-        table.add_row(key, limit.measurement, f"{limit.distance_m:g} m" if limit.distance_m else "-", limit.unit,
-                      ", ".join(limit.detectors), f"{lo / 1e6:g}-{hi / 1e6:g}")
+        measured = limit.measurement + (f" {limit.distance_m:g} m" if limit.distance_m else "")
+        table.add_row(key, measured, limit.unit, " ".join(limit.detectors), f"{lo / 1e6:g}-{hi / 1e6:g}")
         sources.append(f"[bold]{key}[/]: {limit.source}")
     out.print(table)
     out.print("Sources:\n" + "\n".join(sources))
