@@ -8,6 +8,7 @@ from pathlib import Path
 from typing import Optional
 
 import typer
+from rich import box
 from rich.console import Console
 from rich.table import Table
 
@@ -135,9 +136,9 @@ def limits(name: Optional[str] = typer.Argument(None, help="Show this limit's po
             points = ", ".join(f"{f / 1e6:g} MHz {y:g}" for f, y in zip(line.frequency_hz, line.level_db))
             out.print(f"  {det}: {points}", markup=False)
         return
-    table = Table(title="Bundled limits", title_style="bold")
-    table.add_column("name", no_wrap=True)
-    for col in ("measured", "unit", "detectors", "MHz"):
+    table = Table(title="Bundled limits", title_style="bold", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, padding=(0, 1), collapse_padding=True)
+    table.add_column("name", no_wrap=True, min_width=31)
+    for col in ("measured", "unit", "detectors", "span MHz"):
         table.add_column(col, no_wrap=True)
     sources = []
     for key in bundled_limits():
