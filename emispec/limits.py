@@ -44,7 +44,6 @@ __all__ = [
 DETECTORS = ("PK", "QP", "AV", "RMS-AV")
 UNITS = ("dBuV/m", "dBuV", "dBuA")
 MEASUREMENTS = ("radiated", "conducted")
-UPPER_FREQUENCY_RULES = ("fcc-15.33", "cispr32")
 
 
 class LimitError(ValueError):
@@ -135,28 +134,24 @@ def upper_frequency_hz(rule: str | None, highest_internal_hz: float) -> float:
     47 CFR 15.33(b)(1) table; CISPR 32:2015 Table 1 (Fx rule, recalled from
     memory, see tests).
     """
-    fx = highest_internal_hz
     if rule is None:
         return np.inf
-    if rule == "fcc-15.33":
-        if fx < 1.705e6:
-            return 30e6
-        if fx <= 108e6:
-            return 1e9
-        if fx <= 500e6:
-            return 2e9
-        if fx <= 1e9:
-            return 5e9
-        return min(5 * fx, 40e9)
-    if rule == "cispr32":
-        if fx <= 108e6:
-            return 1e9
-        if fx <= 500e6:
-            return 2e9
-        if fx <= 1e9:
-            return 5e9
-        return min(5 * fx, 6e9)
-    raise ValueError(f"unknown upper-frequency rule {rule!r}")
+    if rule not in _UPPER_RULES:
+        raise ValueError(f"unknown upper-frequency rule {rule!r}")
+    below_30mhz_rule, cap_hz = _UPPER_RULES[rule]
+    if highest_internal_hz < below_30mhz_rule:
+        return 30e6
+    for fx_up_to, measure_up_to in _UPPER_STEPS:
+        if highest_internal_hz <= fx_up_to:
+            return measure_up_to
+    return min(5 * highest_internal_hz, cap_hz)
+
+
+# (highest internal frequency up to, measure up to): the same steps in both documents
+_UPPER_STEPS = ((108e6, 1e9), (500e6, 2e9), (1e9, 5e9))
+# rule -> (below this highest frequency measure to 30 MHz only, cap on 5 x Fx above 1 GHz)
+_UPPER_RULES = {"fcc-15.33": (1.705e6, 40e9), "cispr32": (0.0, 6e9)}
+UPPER_FREQUENCY_RULES = tuple(_UPPER_RULES)
 
 
 def _limits_dir():
