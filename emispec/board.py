@@ -18,6 +18,7 @@ import numpy as np
 
 from .coupling import CablePath, LoopPath, Path, TransferPath
 from .limits import Limit, LimitError, limit_from_mapping, load_limit
+from .spread import MODES, PROFILES, Spread
 from .units import QuantityError, from_db, parse_quantity
 from .waveform import EDGE_FRACTION, Trapezoid, WaveformError, full_edge_time
 
@@ -31,7 +32,9 @@ __all__ = ["BoardError", "Clock", "Board", "load_board", "board_from_mapping"]
 TOP_KEYS = ("title", "guard_band", "limit", "max_frequency", "clock", "path", "rail", "current")
 CLOCK_KEYS = (
     "name", "frequency", "duty_cycle", "rise_time", "fall_time", "edge", "swing", "load", "paths", "rail", "spread",
+    "reference",
 )
+SPREAD_KEYS = ("mode", "deviation", "rate", "profile")
 PATH_KEYS = {
     "loop": ("name", "kind", "area", "distance", "ground_reflection"),
     "cable": ("name", "kind", "length", "drive", "ratio", "distance", "ground_reflection", "termination"),
@@ -65,6 +68,8 @@ class Clock:
     paths: tuple[str, ...]
     load_resistance_ohm: float | None = None
     load_capacitance_f: float | None = None
+    spread: Spread | None = None
+    reference: str | None = None
 
     @property
     def has_load(self) -> bool:
@@ -264,8 +269,6 @@ def _parse_clock(file: str, name: str, table: dict, paths: dict[str, Path]) -> C
     r = _Reader(file, f"clock[{name}]", table, CLOCK_KEYS)
     if r.has("rail"):
         raise r.error("rail", NOT_YET)
-    if r.has("spread"):
-        raise r.error("spread", "is not supported yet: spread-spectrum clocking comes with the receiver model")
     frequency = r.quantity("frequency", "frequency", low=0, high=100e9, required=True)
     swing = r.quantity("swing", "voltage", low=0, required=True)
     duty = r.quantity("duty_cycle", "ratio", default=0.5, low=0, high=1, high_open=True)
@@ -277,6 +280,7 @@ def _parse_clock(file: str, name: str, table: dict, paths: dict[str, Path]) -> C
     except WaveformError as err:
         raise r.error("rise_time", f"{err}; allowed: (rise + fall)/2 <= min(duty, 1 - duty) / frequency",
                       table.get("rise_time")) from None
+    spread = _parse_spread(file, r, table, frequency) if r.has("spread") else None
     resistance = capacitance = None
     if r.has("load"):
         load = _Reader(file, r.sub("load"), table["load"], ("resistance", "capacitance"))
@@ -296,7 +300,21 @@ def _parse_clock(file: str, name: str, table: dict, paths: dict[str, Path]) -> C
             raise r.error("load", f"missing; path {p!r} needs the clock current, which needs a load")
     if len(set(names)) != len(names):
         raise r.error("paths", "a path is listed twice", names)
-    return Clock(name, wave, tuple(names), resistance, capacitance)
+    reference = r.text("reference")
+    return Clock(name, wave, tuple(names), resistance, capacitance, spread, reference)
+
+
+def _parse_spread(file: str, clock: _Reader, table: dict, frequency_hz: float) -> Spread:
+    r = _Reader(file, clock.sub("spread"), table["spread"], SPREAD_KEYS)
+    for key in ("mode", "deviation", "rate"):
+        if not r.has(key):
+            raise r.error(key, "missing; a spread needs mode, deviation and rate (profile defaults to triangle)")
+    return Spread(
+        mode=r.choice("mode", MODES),
+        deviation=r.quantity("deviation", "ratio", low=0, high=0.1),
+        rate_hz=r.quantity("rate", "frequency", low=0, high=frequency_hz / 100),
+        profile=r.choice("profile", PROFILES, "triangle"),
+    )
 
 
 def board_from_mapping(data: dict, file: str = "<board>", base_dir: FilePath | None = None, sha256: str = "") -> Board:

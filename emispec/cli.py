@@ -56,6 +56,14 @@ def _fmt(x: float) -> str:
     return "null" if not x == x else f"{x:.1f}"
 
 
+SHORT_FLAGS = {"over-limit": "OVER", "within-guard-band": "guard", "near-field": "near", "spectral-null": "null",
+               "loop-electrically-large": "big-loop"}
+
+
+def _short_flag(flag: str) -> str:
+    return "+" + flag.split(":", 1)[1] if flag.startswith("overlaps:") else SHORT_FLAGS.get(flag, flag)
+
+
 def _margin_style(margin: float, guard: float) -> str:
     if not margin == margin:
         return "dim"
@@ -100,22 +108,25 @@ def _print_table(result, count: int) -> None:
     shown = len(rows) if count == 0 else min(count, len(rows))
     unit = board.limit.unit
     table = Table(title=f"{board.title}\nworst {shown} of {len(rows)} harmonics against {board.limit.name} ({unit})",
-                  title_style="bold", caption="reading, limit and margin of the detector with the least margin; "
-                  "--json and --out give every detector", caption_style="dim")
+                  title_style="bold", caption="reading, limit, margin: the detector with the least margin. SSC dB: what the spread "
+                  "buys there. flags: OVER the limit, inside the guard band, near field, null (spectral "
+                  "null), +name (another clock within one RBW). --json and --out give every detector.", caption_style="dim")
     for name, justify in (("source", "left"), ("n", "right"), ("MHz", "right"), ("band", "left"),
                           ("det", "left"), ("read", "right"), ("limit", "right"),
-                          ("margin dB", "right"), ("flags", "left")):
-        table.add_column(name, justify=justify, no_wrap=name != "flags", overflow="fold", min_width=10 if name == "flags" else None)
+                          ("margin", "right"), ("SSC dB", "right"), ("flags", "left")):
+        table.add_column(name, justify=justify, no_wrap=name != "flags", overflow="fold")
     bands = band_names(rows.frequency_hz[:shown])
     for i in range(shown):
         det = rows.worst_detector[i]
         reading = rows.readings[det][i] if det else max(rows.readings[d][i] for d in board.limit.detectors)
         limit = rows.limits[det][i] if det else float("nan")
         margin = rows.worst_margin_db[i]
+        ssc = _fmt(rows.spread_reduction_db[det][i]) if det and rows.spread[i] else "-"
         table.add_row(
             str(rows.source[i]), str(rows.harmonic[i]), f"{rows.frequency_hz[i] / 1e6:.6g}", str(bands[i]),
             det or "-", _fmt(reading), _fmt(limit), f"[{_margin_style(margin, board.guard_band_db)}]{_fmt(margin)}[/]",
-            ", ".join(flag.replace("-", " ") for flag in rows.flag_list(i)),
+            ssc,
+            " ".join(_short_flag(flag) for flag in rows.flag_list(i)),
         )
     out.print(table)
     verdict = result.verdict()

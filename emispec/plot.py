@@ -12,7 +12,7 @@ import numpy as np  # noqa: E402
 
 from .margin import Estimate, clock_envelope_dbu  # noqa: E402
 
-__all__ = ["spectrum_figure"]
+__all__ = ["spectrum_figure", "swept_figure"]
 
 DETECTOR_STYLE = {"QP": "-", "PK": "-.", "AV": "--", "RMS-AV": ":"}
 
@@ -37,6 +37,35 @@ def spectrum_figure(est: Estimate):
         ax.plot(rows.frequency_hz[mine], reading[mine], "o", ms=3, color=color,
                 label=f"{clock.name} ({clock.wave.frequency_hz / 1e6:g} MHz)")
         ax.plot(grid, clock_envelope_dbu(board, clock, grid), "--", lw=0.8, color=color, alpha=0.8)
+    limit_max = _limit_lines(ax, est, grid)
+    over = rows.flags["over-limit"]
+    if over.any():
+        ax.plot(rows.frequency_hz[over], reading[over], "x", color="red", ms=8, mew=2, label="over the limit")
+    finite = reading[np.isfinite(reading)]
+    top = max(limit_max, finite.max() if finite.size else limit_max) + 10
+    ax.set_ylim(top - 100, top)
+    _finish(fig, ax, est, "estimate")
+    return fig
+
+
+def _finish(fig, ax, est: Estimate, what: str) -> None:
+    lo, hi = est.span_hz
+    ax.set_xscale("log")
+    ax.set_xlim(lo, hi)
+    ax.xaxis.set_major_locator(matplotlib.ticker.LogLocator(subs=(1.0, 2.0, 5.0)))
+    ax.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda x, _: f"{x / 1e6:g}"))
+    ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
+    ax.set_xlabel("Frequency [MHz]")
+    ax.set_ylabel(f"Reading [{est.board.limit.unit}]")
+    ax.set_title(f"{est.board.title}: {what} against {est.board.limit.name}\n{est.verdict()}", fontsize=10)
+    ax.grid(True, which="both", alpha=0.3)
+    fig.legend(fontsize=8, loc="outside right upper")
+    fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
+
+
+def _limit_lines(ax, est: Estimate, grid) -> float:
+    """Draw each detector's limit and guard-band line; return the highest limit level."""
+    board, limit = est.board, est.board.limit
     levels = limit.levels(grid)
     for det in (d for d in limit.detectors if np.isfinite(levels[d]).sum() > 1):
         style = DETECTOR_STYLE.get(det, "-")
@@ -44,22 +73,26 @@ def spectrum_figure(est: Estimate):
         if board.guard_band_db > 0:
             ax.plot(grid, levels[det] - board.guard_band_db, style, color="gray", lw=0.9,
                     label=f"limit {det} - {board.guard_band_db:g} dB guard band")
-    over = rows.flags["over-limit"]
-    if over.any():
-        ax.plot(rows.frequency_hz[over], reading[over], "x", color="red", ms=8, mew=2, label="over the limit")
-    finite = reading[np.isfinite(reading)]
-    limit_max = max(np.nanmax(v) for v in levels.values() if np.isfinite(v).any())
-    top = max(limit_max, finite.max() if finite.size else limit_max) + 10
+    return max(np.nanmax(v) for v in levels.values() if np.isfinite(v).any())
+
+
+def swept_figure(est: Estimate, frequency_hz, readings: dict):
+    """Swept receiver readings (PK, QP, AV) of all sources together against the limit.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    lo, hi = est.span_hz
+    fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
+    colors = {"PK": "tab:red", "QP": "tab:blue", "AV": "tab:green", "RMS-AV": "tab:purple"}
+    top = -np.inf
+    for det, level in readings.items():
+        ax.plot(frequency_hz, level, lw=0.8, color=colors.get(det), label=f"swept {det}")
+        if np.isfinite(level).any():
+            top = max(top, np.nanmax(level))
+    limit_max = _limit_lines(ax, est, np.geomspace(lo, hi, 4000))
+    top = max(top, limit_max) + 10
     ax.set_ylim(top - 100, top)
-    ax.set_xscale("log")
-    ax.set_xlim(lo, hi)
-    ax.xaxis.set_major_locator(matplotlib.ticker.LogLocator(subs=(1.0, 2.0, 5.0)))
-    ax.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda x, _: f"{x / 1e6:g}"))
-    ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
-    ax.set_xlabel("Frequency [MHz]")
-    ax.set_ylabel(f"Reading [{limit.unit}]")
-    ax.set_title(f"{board.title}: estimate against {limit.name}\n{est.verdict()}", fontsize=10)
-    ax.grid(True, which="both", alpha=0.3)
-    fig.legend(fontsize=8, loc="outside right upper")
-    fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
+    _finish(fig, ax, est, "swept receiver readings")
     return fig

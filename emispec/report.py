@@ -21,7 +21,7 @@ import numpy as np
 from . import __version__
 from .margin import FLAGS, Estimate
 
-__all__ = ["CAUTION", "SCHEMA", "result_dict", "row_dict", "csv_text", "markdown_text", "atomic_write", "write_outputs"]
+__all__ = ["CAUTION", "SCHEMA", "result_dict", "row_dict", "csv_text", "swept_csv_text", "markdown_text", "atomic_write", "write_outputs"]
 
 SCHEMA = "emispec.result/1"
 CAUTION = (
@@ -49,11 +49,13 @@ def row_dict(est: Estimate, i: int) -> dict:
         "frequency_hz": float(r.frequency_hz[i]),
         "line_dbuv": _num(r.line_dbuv[i]),
         "line_dbua": _num(r.line_dbua[i]),
+        "band_hz": [float(r.band_lo_hz[i]), float(r.band_hi_hz[i])] if r.spread[i] else None,
         "paths": {
             p: {d: _num(r.path_readings[p][d][i]) for d in detectors}
             for p in est.source_paths[str(r.source[i])]
         },
         "readings": {d: _num(r.readings[d][i]) for d in detectors},
+        "spread_reduction_db": {d: _num(r.spread_reduction_db[d][i]) for d in detectors} if r.spread[i] else None,
         "limits": limits,
         "margin_db": {d: _num(r.margins[d][i]) for d in limits},
         "worst_margin_db": _num(r.worst_margin_db[i]),
@@ -103,8 +105,8 @@ def _cell(x) -> str:
 def _table_columns(est: Estimate) -> list[str]:
     dets = est.board.limit.detectors
     return (
-        ["source", "harmonic", "frequency_hz", "line_dbuv", "line_dbua"]
-        + [f"{kind}_{d}" for d in dets for kind in ("reading", "limit", "margin")]
+        ["source", "harmonic", "frequency_hz", "band_lo_hz", "band_hi_hz", "line_dbuv", "line_dbua"]
+        + [f"{kind}_{d}" for d in dets for kind in ("reading", "limit", "margin", "ssc_reduction")]
         + ["worst_margin_db", "flags"]
     )
 
@@ -113,9 +115,9 @@ def _table_rows(est: Estimate, count: int | None = None):
     r, dets = est.rows, est.board.limit.detectors
     for i in range(len(r) if count is None else min(count, len(r))):
         yield (
-            [str(r.source[i]), str(int(r.harmonic[i])), f"{r.frequency_hz[i]:.6g}", _cell(r.line_dbuv[i]),
-             _cell(r.line_dbua[i])]
-            + [_cell(col[d][i]) for d in dets for col in (r.readings, r.limits, r.margins)]
+            [str(r.source[i]), str(int(r.harmonic[i])), f"{r.frequency_hz[i]:.10g}", f"{r.band_lo_hz[i]:.10g}",
+             f"{r.band_hi_hz[i]:.10g}", _cell(r.line_dbuv[i]), _cell(r.line_dbua[i])]
+            + [_cell(col[d][i]) for d in dets for col in (r.readings, r.limits, r.margins, r.spread_reduction_db)]
             + [_cell(r.worst_margin_db[i]), " ".join(r.flag_list(i))]
         )
 
@@ -127,6 +129,20 @@ def csv_text(est: Estimate) -> str:
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow(_table_columns(est))
     writer.writerows(_table_rows(est))
+    return buffer.getvalue()
+
+
+def swept_csv_text(est: Estimate, frequency_hz, readings: dict) -> str:
+    """The swept spectrum: frequency, detector readings and the limit's lines, in the limit's unit."""
+    limits = est.board.limit.levels(frequency_hz)
+    buffer = io.StringIO()
+    buffer.write(f"# {CAUTION}\n# swept receiver readings in {est.board.limit.unit}, all sources together; "
+                 "steps of RBW/2 plus every unmodulated line\n")
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(["frequency_hz", *readings, *(f"limit_{d}" for d in limits)])
+    for k, f in enumerate(frequency_hz):
+        writer.writerow([f"{f:.10g}", *(_cell(v[k]) for v in readings.values()),
+                         *(_cell(v[k]) for v in limits.values())])
     return buffer.getvalue()
 
 
@@ -188,24 +204,28 @@ def write_outputs(est: Estimate, out_dir: Path, stem: str = "estimate") -> list[
     All files are first rendered into a temporary folder inside ``out_dir``
     and then renamed into place, so a failure leaves nothing half-written.
     """
-    from .plot import spectrum_figure  # matplotlib is slow to import; only here
+    from .margin import swept_spectrum
+    from .plot import spectrum_figure, swept_figure  # matplotlib is slow to import; only here
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(dir=out_dir, prefix=".emispec-"))
     try:
+        swept_hz, swept = swept_spectrum(est)
         contents = {
             f"{stem}.json": json_text(est),
             f"{stem}.csv": csv_text(est),
             f"{stem}.md": markdown_text(est),
+            f"{stem}-swept.csv": swept_csv_text(est, swept_hz, swept),
         }
         for name, text in contents.items():
             (staging / name).write_text(text, encoding="utf-8")
-        figure = spectrum_figure(est)
-        figure.savefig(staging / f"{stem}-spectrum.png", dpi=120)
         import matplotlib.pyplot as plt
 
-        plt.close(figure)
+        for name, figure in ((f"{stem}-spectrum.png", spectrum_figure(est)),
+                             (f"{stem}-swept.png", swept_figure(est, swept_hz, swept))):
+            figure.savefig(staging / name, dpi=120)
+            plt.close(figure)
         written = []
         for item in sorted(staging.iterdir()):
             os.replace(item, out_dir / item.name)

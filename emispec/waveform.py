@@ -25,6 +25,7 @@ __all__ = [
     "full_edge_time",
     "Trapezoid",
     "harmonic_amplitudes",
+    "harmonic_phasors",
     "envelope",
     "corner_frequencies",
     "rms",
@@ -173,6 +174,22 @@ def harmonic_amplitudes(wave: Trapezoid, n: np.ndarray) -> np.ndarray:
             null |= _is_integer(m * (wave.rise_s * f0)) & _is_integer(m * (wave.fall_s * f0))
         amplitude[maybe[null]] = 0.0
     return amplitude
+
+
+def harmonic_phasors(wave: Trapezoid, n: np.ndarray) -> np.ndarray:
+    """Complex one-sided harmonic amplitudes, phase referred to the middle of the rising edge.
+
+    Magnitudes are those of :func:`harmonic_amplitudes` (exact nulls kept); the
+    phase is that of (A / (j pi n)) (sinc(n tr/T) - exp(-j 2 pi n tau/T) sinc(n tf/T)).
+    Phases matter only where lines of one clock, or of clocks sharing a
+    reference, add inside one receiver bandwidth.
+    """
+    n = np.asarray(n, dtype=float)
+    f0 = wave.frequency_hz
+    shape = (np.sinc(n * wave.rise_s * f0) - np.exp(-2j * np.pi * n * wave.duty) * np.sinc(n * wave.fall_s * f0)) / (
+        1j * n
+    )
+    return harmonic_amplitudes(wave, n) * np.exp(1j * np.angle(shape))
 
 
 def _sinc_of_multiple(n: np.ndarray, c: float) -> np.ndarray:

@@ -44,7 +44,20 @@ MALFORMED = {
                                   "path[loop1].kind"),
     "rail not yet": (BASE_BOARD + '\n[[rail]]\nname = "r"\nvoltage = "3.3 V"\n', "rail"),
     "current not yet": (BASE_BOARD + '\n[[current]]\nname = "x"\n', "current"),
-    "spread not yet": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down" }'), "clock[clk].spread"),
+    "spread without rate": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "0.5 %" }'),
+                            "clock[clk].spread.rate"),
+    "spread too deep": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "12 %", '
+                                'rate = "30 kHz" }'), "clock[clk].spread.deviation"),
+    "spread too fast": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "1 %", '
+                                'rate = "1 MHz" }'), "clock[clk].spread.rate"),
+    "spread rate in ns": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "1 %", '
+                                  'rate = "1 ns" }'), "clock[clk].spread.rate"),
+    "spread profile": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "1 %", '
+                               'rate = "30 kHz", profile = "kiss" }'), "clock[clk].spread.profile"),
+    "spread mode": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "middle", deviation = "1 %", '
+                            'rate = "30 kHz" }'), "clock[clk].spread.mode"),
+    "spread unknown key": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "1 %", '
+                                   'rate = "30 kHz", shape = "sine" }'), "clock[clk].spread.shape"),
     "escape not yet": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\ndrive = "escape"\n',
                        "path[h].drive"),
     "conducted not yet": (replace("cispr32-class-b-radiated-10m", "fcc15-class-b-conducted").replace(
@@ -116,3 +129,13 @@ def test_cable_ratio_in_db_or_linear(write_board):
             '\n[[path]]\nname = "g"\nkind = "cable"\nlength = "1 m"\nratio = 0.01\n'
     board = load_board(write_board(BASE_BOARD + extra))
     assert board.paths["h"].ratio == pytest.approx(0.01) and board.paths["g"].ratio == pytest.approx(0.01)
+
+
+def test_spread_is_read_in_si(write_board):
+    board = load_board(write_board(BASE_BOARD.replace(
+        'swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "centre", deviation = "0.5 %", rate = "31.5 kHz", '
+        'profile = "sine" }\nreference = "xtal"')))
+    spread = board.clocks[0].spread
+    assert (spread.mode, spread.profile) == ("centre", "sine")
+    assert spread.deviation == pytest.approx(0.005) and spread.rate_hz == pytest.approx(31.5e3)
+    assert board.clocks[0].reference == "xtal"

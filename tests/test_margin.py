@@ -127,3 +127,118 @@ def test_fcc_limit_extends_the_span_for_fast_clocks(write_board):
     assert est.rows.frequency_hz.max() == 2e9
     above = est.rows.frequency_hz > 1e9
     assert np.all(np.isfinite(est.rows.limits["AV"][above])) and np.all(np.isnan(est.rows.limits["QP"][above]))
+
+
+SPREAD_BOARD = """\
+title = "spread check"
+limit = "cispr32-class-b-radiated-3m"
+max_frequency = "1.3 GHz"
+
+[[clock]]
+name = "fast"
+frequency = "120 MHz"
+rise_time = "1 ns"
+swing = "3.3 V"
+load = { resistance = "50 ohm" }
+spread = { mode = "down", deviation = "0.5 %", rate = "30 kHz" }
+paths = ["probe"]
+
+[[path]]
+name = "probe"
+kind = "transfer"
+input = "voltage"
+gain = [["30 MHz", -80.0], ["6 GHz", -80.0]]
+"""
+
+
+def test_spread_rows_read_the_worst_tuning_point_and_report_the_reduction(write_board):
+    # Source: the same receiver model against brute force in tests/test_receiver.py; here the pipeline wiring:
+    # reading = max over the band, reduction = unspread CW level - spread reading, Parseval keeps the line level
+    est = estimate(load_board(write_board(SPREAD_BOARD)))
+    rows = est.rows
+    third = np.flatnonzero(rows.harmonic == 3)[0]
+    assert rows.spread[third]
+    assert rows.band_lo_hz[third] == pytest.approx(360e6 * 0.995) and rows.band_hi_hz[third] == pytest.approx(360e6)
+    wave = Trapezoid(120e6, 3.3, 0.5, 1.25e-9, 1.25e-9)
+    cw = db_micro(harmonic_amplitudes(wave, [3])[0] / np.sqrt(2) * 10 ** (-80 / 20))
+    assert rows.line_dbuv[third] - 80 == pytest.approx(cw)
+    for det in ("QP",):
+        assert rows.readings[det][third] < cw
+        assert rows.spread_reduction_db[det][third] == pytest.approx(cw - rows.readings[det][third], abs=1e-9)
+    assert est.span_hz[1] == 1.3e9  # CISPR 32 Table 1: Fx of 120 MHz -> 2 GHz, capped by max_frequency
+    above = np.flatnonzero(rows.harmonic == 9)[0]  # 1.08 GHz: band E, AV and PK, no QP
+    assert rows.limits["QP"][above] != rows.limits["QP"][above]  # no QP line above 1 GHz
+    assert rows.spread_reduction_db["AV"][above] > rows.spread_reduction_db["PK"][above] > 0
+
+
+COINCIDENT_BOARD = """\
+title = "coincident"
+limit = "cispr32-class-b-radiated-10m"
+
+[[clock]]
+name = "a"
+frequency = "25 MHz"
+duty_cycle = "40 %"
+rise_time = "2 ns"
+swing = "3.3 V"
+paths = ["probe"]
+{ref_a}
+
+[[clock]]
+name = "b"
+frequency = "50 MHz"
+duty_cycle = "40 %"
+rise_time = "2 ns"
+swing = "3.3 V"
+paths = ["probe"]
+{ref_b}
+
+[[path]]
+name = "probe"
+kind = "transfer"
+input = "voltage"
+gain = [["30 MHz", -80.0], ["1 GHz", -80.0]]
+"""
+
+
+@pytest.mark.parametrize("shared", [False, True])
+def test_coincident_harmonics_add_in_power_or_in_amplitude(write_board, shared):
+    # Source: power sum of incoherent sources; amplitude sum (worst case) for a shared reference (SPEC 2.5)
+    refs = dict(ref_a='reference = "x"', ref_b='reference = "x"') if shared else dict(ref_a="", ref_b="")
+    est = estimate(load_board(write_board(COINCIDENT_BOARD.format(**refs))))
+    rows = est.rows
+    a3 = np.flatnonzero((rows.source == "a") & (rows.harmonic == 3))[0]  # 75 MHz, a alone
+    a6 = np.flatnonzero((rows.source == "a") & (rows.harmonic == 6))[0]  # 150 MHz, with b's 3rd
+    b3 = np.flatnonzero((rows.source == "b") & (rows.harmonic == 3))[0]
+    level_a = harmonic_amplitudes(Trapezoid(25e6, 3.3, 0.4, 2.5e-9, 2.5e-9), [6])[0] / np.sqrt(2) * 1e-4
+    level_b = harmonic_amplitudes(Trapezoid(50e6, 3.3, 0.4, 2.5e-9, 2.5e-9), [3])[0] / np.sqrt(2) * 1e-4
+    expected = level_a + level_b if shared else np.hypot(level_a, level_b)
+    assert rows.readings["QP"][a6] == pytest.approx(db_micro(expected), abs=1e-6)
+    assert rows.readings["QP"][b3] == pytest.approx(db_micro(expected), abs=1e-6)
+    assert "overlaps:b" in rows.flag_list(a6) and "overlaps:a" in rows.flag_list(b3)
+    assert not any(f.startswith("overlaps") for f in rows.flag_list(a3))
+    assert rows.path_readings["probe"]["QP"][a6] == pytest.approx(db_micro(level_a), abs=1e-6)
+
+
+def test_closely_spaced_harmonics_share_the_filter(write_board):
+    # Source: envelope of lines inside one Gaussian RBW, summed directly in the time domain here
+    text = TRANSFER_BOARD.replace('frequency = "500 kHz"', 'frequency = "6 kHz"').replace(
+        'rise_time = "20 ns"', 'rise_time = "2 us"')
+    est = estimate(load_board(write_board(text)))
+    rows = est.rows
+    i = np.flatnonzero(rows.harmonic == 101)[0]  # 606 kHz, band B: 9 kHz RBW reaches its neighbours
+    wave = Trapezoid(6e3, 12.0, 0.5, 2e-6, 2e-6)
+    n = np.arange(95, 108)
+    from emispec.waveform import harmonic_phasors
+    from emispec.receiver import filter_response
+
+    b = harmonic_phasors(wave, n) / np.sqrt(2) * 10 ** (-70 / 20) * filter_response(n * 6e3 - 606e3, 9e3)
+    t = np.linspace(0, 1 / 6e3, 20000, endpoint=False)
+    env = np.abs(np.exp(2j * np.pi * np.outer(t, (n - 101) * 6e3)) @ b)
+    assert rows.readings["QP"][i] > db_micro(np.abs(b[n == 101])[0])  # neighbours add
+    # band B QP of this fast envelope, against the same detector fed with the directly summed envelope
+    from emispec.receiver import BANDS, detect
+
+    expected = detect(env[None, :], 1 / 6e3, BANDS[1], ("QP", "AV"))
+    assert rows.readings["QP"][i] == pytest.approx(db_micro(expected["QP"][0]), abs=0.02)
+    assert rows.readings["AV"][i] == pytest.approx(db_micro(expected["AV"][0]), abs=0.02)
