@@ -249,15 +249,17 @@ def detect(envelope, period_s: float, band: Band, detectors) -> dict[str, np.nda
 # ---------------------------------------------------------------- swept readings
 
 
-def _peak_refined(z_samples, weights, bins, n_fft):
-    """Envelope maximum, refined between samples by evaluating the line sum directly."""
-    mag = np.abs(z_samples)
-    best = np.argmax(mag, axis=1)
-    offsets = np.linspace(-1.0, 1.0, 9)
-    t = (best[:, None] + offsets[None, :]) / n_fft  # in periods
-    phase = np.exp(2j * np.pi * bins[:, :, None] * t[:, None, :])
-    fine = np.abs(np.einsum("rw,rwt->rt", weights, phase))
-    return np.maximum(mag.max(axis=1), fine.max(axis=1))
+def _peak_refined(env: np.ndarray) -> np.ndarray:
+    """Envelope maximum refined between samples by a parabola through the top three samples."""
+    rows = np.arange(env.shape[0])
+    best = np.argmax(env, axis=1)
+    y0 = env[rows, best - 1]
+    y1 = env[rows, best]
+    y2 = env[rows, (best + 1) % env.shape[1]]
+    curvature = y0 - 2 * y1 + y2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = np.where(curvature < 0, 0.5 * (y0 - y2) / curvature, 0.0)
+    return np.maximum(y1, y1 - 0.25 * (y0 - y2) * shift)
 
 
 def sweep(line_hz, line_amplitude, grid_hz: float, tuning_hz, detectors, max_cells: int = 1 << 21):
@@ -322,20 +324,34 @@ def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, band, detectors
     present = col[None, :] < count[:, None]
     idx = np.where(present, lo[:, None] + col[None, :], lo[:, None])
     freq = line_hz[idx]
-    weights = np.where(present, amp[idx] * filter_response(freq - tuning[:, None], band.rbw_hz), 0.0)
     if width == 1:  # a single line: a CW reading
-        level = np.abs(weights[:, 0])
+        level = np.abs(amp[idx[:, 0]]) * filter_response(freq[:, 0] - tuning, band.rbw_hz)
         return {det: (np.full(level.shape, np.nan) if det == "QP" and band.qp_charge_s is None else level)
                 for det in detectors}
+    # offsets need float64 (lines at GHz, offsets at kHz); the weights and the envelope do not
+    gain = filter_response(((freq - tuning[:, None]) / band.rbw_hz).astype(np.float32), 1.0)
+    weights = np.where(present, amp[idx].astype(np.complex64) * gain, np.complex64(0))
     bins = np.rint((freq - freq[:, :1]) / grid_hz).astype(np.int64)
-    bins = np.where(present, bins, 0)
     span = int(bins.max()) + 1
-    n_fft = int(2 ** np.ceil(np.log2(max(64, 8 * span))))
-    rows = np.arange(tuning.size)
-    spectrum = np.zeros((tuning.size, n_fft), dtype=complex)
-    np.add.at(spectrum, (np.broadcast_to(rows[:, None], bins.shape), bins), weights)
-    z = scipy.fft.ifft(spectrum, axis=1, workers=-1) * n_fft
-    values = detect(np.abs(z), 1.0 / grid_hz, band, detectors)
+    # 4x oversampled envelope; the peak is refined between samples (_peak_refined)
+    n_fft = int(2 ** np.ceil(np.log2(max(32, 4 * span))))
+    # padding cells go to an extra column that is dropped before the transform
+    bins = np.where(present, bins, n_fft)
+    rows = np.arange(tuning.size)[:, None]
+    spectrum = np.zeros((tuning.size, n_fft + 1), dtype=np.complex64)
+    spectrum[rows, bins] = weights
+    shared = present[:, 1:] & (bins[:, 1:] == bins[:, :-1])  # lines of two harmonics rounded onto one bin
+    if shared.any():
+        clash = np.flatnonzero(shared.any(axis=1))
+        flat = (np.arange(clash.size)[:, None] * (n_fft + 1) + bins[clash]).ravel()
+        cells = clash.size * (n_fft + 1)
+        added = np.empty(cells, dtype=np.complex64)
+        added.real = np.bincount(flat, weights[clash].real.ravel(), cells)
+        added.imag = np.bincount(flat, weights[clash].imag.ravel(), cells)
+        spectrum[clash] = added.reshape(clash.size, n_fft + 1)
+    env = np.abs(scipy.fft.ifft(spectrum[:, :n_fft], axis=1, workers=-1, overwrite_x=True))
+    env *= n_fft
+    values = detect(env, 1.0 / grid_hz, band, detectors)
     if "PK" in values:
-        values["PK"] = _peak_refined(z, weights, bins, n_fft)
+        values["PK"] = _peak_refined(env)
     return values
