@@ -271,6 +271,9 @@ def limit_from_mapping(data: dict, name: str, file: str, base_dir: Path | None =
     for det, points in data["lines"].items():
         _choice(file, f"lines.{det}", det, DETECTORS)
         f, y = _points(file, f"lines.{det}", points, base_dir)
+        if det == "QP" and f[-1] > 1e9 * (1 + 1e-12):
+            raise LimitError(file, f"lines.{det}", "a QP line ends at or below 1 GHz (CISPR 16-1-1 defines no "
+                             "quasi-peak detector above 1 GHz); use AV and PK lines above")
         lines[det] = LimitLine(det, f, y)
     return Limit(
         name=name,

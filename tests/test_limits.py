@@ -123,6 +123,8 @@ def test_toml_limit_with_csv_line(tmp_path):
         ('measurement = "conducted"\nunit = "dBuV"\n[lines]\nQP = [["1 us", 40.0], ["2 MHz", 40.0]]\n', "lines.QP[0]"),
         ('measurement = "conducted"\nunit = "dBuV/m"\n[lines]\nQP = [["1 MHz", 40.0], ["2 MHz", 40.0]]\n', "unit"),
         ('measurement = "conducted"\nunit = "dBuV"\ncolour = 1\n[lines]\nQP = [["1 MHz", 4], ["2 MHz", 4]]\n', "colour"),
+        ('measurement = "radiated"\ndistance = "3 m"\nunit = "dBuV/m"\n[lines]\nQP = [["1 GHz", 4], ["2 GHz", 4]]\n',
+         "lines.QP"),
     ],
 )
 def test_malformed_limit_files_name_the_key(tmp_path, body, key):

@@ -24,3 +24,26 @@ def test_spectrum_plot_has_limits_guard_band_sources_and_marks():
     import matplotlib.pyplot as plt
 
     plt.close(fig)
+
+
+def test_swept_plot_has_each_detector_and_the_limit():
+    from emispec.margin import swept_spectrum
+    from emispec.plot import swept_figure
+
+    est = estimate(load_board(REPO / "samples" / "beehive-gateway.toml"))
+    freq, readings = swept_spectrum(est)
+    assert set(readings) == {"PK", "QP", "AV"}
+    assert np.all(np.diff(freq) > 0) and freq[0] == est.span_hz[0] and freq[-1] == est.span_hz[1]
+    # every unmodulated line is tuned onto exactly
+    mcu = [s for s in est.sources if s.name == "mcu_clk"][0]
+    assert np.isin(mcu.line_hz[(mcu.line_hz >= 30e6) & (mcu.line_hz <= 1e9)], freq).all()
+    # peak >= quasi-peak >= average wherever something is read (detector ordering for any envelope)
+    seen = np.isfinite(readings["PK"]) & (readings["PK"] > -50)
+    assert np.all(readings["PK"][seen] >= readings["QP"][seen] - 1e-6)
+    assert np.all(readings["QP"][seen] >= readings["AV"][seen] - 1e-6)
+    fig = swept_figure(est, freq, readings)
+    labels = [line.get_label() for line in fig.axes[0].get_lines()]
+    assert {"swept PK", "swept QP", "swept AV", "limit QP"} <= set(labels)
+    import matplotlib.pyplot as plt
+
+    plt.close(fig)

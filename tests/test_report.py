@@ -81,3 +81,14 @@ def test_summary_worst_is_first_row(demo):
     first = data["rows"][0]
     assert data["summary"]["worst"]["frequency_hz"] == first["frequency_hz"]
     assert math.isclose(data["summary"]["worst"]["worst_margin_db"], np.nanmin(demo.rows.worst_margin_db), abs_tol=1e-3)
+
+
+def test_spread_rows_carry_band_and_reduction(demo):
+    data = result_dict(demo)
+    spread_rows = [row for row in data["rows"] if row["source"] == "sdram_clk"]
+    assert spread_rows and all(row["band_hz"] is not None for row in spread_rows)
+    lo, hi = spread_rows[0]["band_hz"]
+    assert hi == pytest.approx(spread_rows[0]["frequency_hz"]) and lo == pytest.approx(0.995 * hi)
+    assert all(row["spread_reduction_db"]["QP"] is not None for row in spread_rows if row["readings"]["QP"])
+    plain = [row for row in data["rows"] if row["source"] == "mcu_clk"]
+    assert all(row["band_hz"] is None and row["spread_reduction_db"] is None for row in plain)
