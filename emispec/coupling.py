@@ -26,6 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import constants
 
+from .decoupling import lisn_impedance
+
 __all__ = [
     "LOOP_CONSTANT",
     "loop_field",
@@ -35,6 +37,8 @@ __all__ = [
     "LoopPath",
     "CablePath",
     "TransferPath",
+    "ConductedPath",
+    "COMMON_MODE_OHM",
     "Path",
 ]
 
@@ -127,6 +131,11 @@ def interpolate_db_log_f(frequency_hz, table_hz, table_db):
     return np.interp(np.log10(frequency_hz), np.log10(table_hz), table_db)
 
 
+#: Common-mode impedance of an attached cable, as in the CDNs and ISNs of
+#: CISPR 16-1-2 and IEC 61000-4-6 (150 ohm).
+COMMON_MODE_OHM = 150.0
+
+
 @dataclass(frozen=True)
 class LoopPath:
     """Differential-mode radiation of the loop the source current flows in."""
@@ -137,34 +146,46 @@ class LoopPath:
     ground_reflection: bool = True
     input: str = "current"
 
-    def reading(self, frequency_hz, voltage_rms, current_rms, limit_distance_m):
-        return loop_field(frequency_hz, current_rms, self.area_m2, limit_distance_m, self.ground_reflection)
+    def reading(self, frequency_hz, source, limit_distance_m):
+        return loop_field(frequency_hz, source["current"], self.area_m2, limit_distance_m, self.ground_reflection)
 
 
 @dataclass(frozen=True)
 class CablePath:
-    """Common-mode radiation of an attached cable driven at a ratio of the source current."""
+    """Common-mode radiation of an attached cable.
+
+    ``drive = "ratio"``: the cable carries ``ratio`` times the source current.
+    ``drive = "escape"``: it carries the rail current that escapes the
+    decoupling into the cable's common-mode ``termination_ohm``.
+    """
 
     name: str
     length_m: float
-    ratio: float
+    ratio: float | None = None
     distance_m: float | None = None
     ground_reflection: bool = True
-    input: str = "current"
+    termination_ohm: float = COMMON_MODE_OHM
 
-    def reading(self, frequency_hz, voltage_rms, current_rms, limit_distance_m):
-        return cable_field(
-            frequency_hz, self.ratio * current_rms, self.length_m, limit_distance_m, self.ground_reflection
-        )
+    @property
+    def input(self) -> str:
+        return "current" if self.ratio is not None else "escape"
+
+    def termination(self, frequency_hz) -> np.ndarray:
+        return np.full(np.shape(frequency_hz), self.termination_ohm, dtype=complex)
+
+    def reading(self, frequency_hz, source, limit_distance_m):
+        current = self.ratio * source["current"] if self.ratio is not None else source["escape"]
+        return cable_field(frequency_hz, current, self.length_m, limit_distance_m, self.ground_reflection)
 
 
 @dataclass(frozen=True)
 class TransferPath:
-    """A user's gain table from the source voltage or current to the limit's unit.
+    """A user's gain table from the source voltage, current or escaping rail current to the limit's unit.
 
     The gain is in dB re the limit unit per source unit (e.g. dB(uV/m)/uV).
     A table taken at ``distance_m`` is referred to the limit's distance by
-    inverse distance.
+    inverse distance.  An ``escape`` input sees ``termination_ohm`` beyond the
+    supply path.
     """
 
     name: str
@@ -172,12 +193,39 @@ class TransferPath:
     table_hz: np.ndarray
     table_db: np.ndarray
     distance_m: float | None = None
+    termination_ohm: float = COMMON_MODE_OHM
 
-    def reading(self, frequency_hz, voltage_rms, current_rms, limit_distance_m):
-        source = voltage_rms if self.input == "voltage" else current_rms
+    def termination(self, frequency_hz) -> np.ndarray:
+        return np.full(np.shape(frequency_hz), self.termination_ohm, dtype=complex)
+
+    def reading(self, frequency_hz, source, limit_distance_m):
         gain = 10.0 ** (interpolate_db_log_f(frequency_hz, self.table_hz, self.table_db) / 20.0)
         scale = 1.0 if self.distance_m is None or limit_distance_m is None else self.distance_m / limit_distance_m
-        return source * gain * scale
+        return source[self.input] * gain * scale
 
 
-Path = LoopPath | CablePath | TransferPath
+@dataclass(frozen=True)
+class ConductedPath:
+    """The escaping rail current into a CISPR 16-1-2 LISN, read at its 50 ohm port.
+
+    ``measure = "voltage"`` gives the port voltage (limits in dBuV), ``"current"``
+    the current itself (limits in dBuA).  ``series_ohm`` is the resistor in
+    series with the 50 uH inductor (5 ohm in the 50 uH + 5 ohm network; 0 for
+    the plain 50 ohm // 50 uH network).
+    """
+
+    name: str
+    measure: str = "voltage"
+    series_ohm: float = 5.0
+    input: str = "escape"
+    distance_m: None = None
+
+    def termination(self, frequency_hz) -> np.ndarray:
+        return lisn_impedance(frequency_hz, self.series_ohm)
+
+    def reading(self, frequency_hz, source, limit_distance_m):
+        current = source["escape"]
+        return current * np.abs(self.termination(frequency_hz)) if self.measure == "voltage" else current
+
+
+Path = LoopPath | CablePath | TransferPath | ConductedPath

@@ -22,13 +22,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .board import Board, Clock
+from .board import Board, Clock, Current
 from .coupling import CablePath, LoopPath, near_field
+from .decoupling import anti_resonances, escape_fraction
 from .limits import upper_frequency_hz
 from .receiver import BANDS, resolution_bandwidth_hz, sweep
 from .spread import harmonic_lines, occupied_band_hz
-from .units import db_micro
-from .waveform import envelope, harmonic_amplitudes, harmonic_phasors, load_current, rms
+from .units import db_micro, from_db
+from .waveform import envelope, harmonic_phasors, load_current, rms, triangle_pulse_phasors
 
 __all__ = [
     "FLAGS",
@@ -36,13 +37,14 @@ __all__ = [
     "Rows",
     "Estimate",
     "analysis_span_hz",
-    "path_gains",
+    "source_gains",
     "clock_envelope_dbu",
     "estimate",
     "swept_spectrum",
 ]
 
-FLAGS = ("over-limit", "within-guard-band", "near-field", "loop-electrically-large", "spectral-null")
+FLAGS = ("over-limit", "within-guard-band", "near-field", "loop-electrically-large", "spectral-null",
+         "decoupling-insufficient", "above-target-impedance", "near-anti-resonance")
 SWEPT_DETECTORS = ("PK", "QP", "AV")
 
 
@@ -83,6 +85,9 @@ class Rows:
     worst_margin_db: np.ndarray
     worst_detector: np.ndarray
     flags: dict[str, np.ndarray]
+    decoupling_impedance_ohm: np.ndarray
+    required_impedance_ohm: np.ndarray
+    suppression_db: np.ndarray
 
     def __len__(self) -> int:
         return len(self.harmonic)
@@ -137,39 +142,61 @@ class Estimate:
 def analysis_span_hz(board: Board) -> tuple[float, float]:
     """Frequency span to analyse: the limit's lines, cut at the standard's upper frequency and the board's cap."""
     lo, hi = board.limit.span_hz
-    highest = max(clock.wave.frequency_hz * (1 + (clock.spread.deviation if clock.spread else 0))
-                  for clock in board.clocks)
+    highest = max(source.frequency_hz * (1 + (source.spread.deviation if source.spread else 0))
+                  for source in board.sources)
     hi = min(hi, upper_frequency_hz(board.limit.upper_frequency, highest))
     if board.max_frequency_hz is not None:
         hi = min(hi, board.max_frequency_hz)
     return lo, hi
 
 
-def _harmonic_numbers(clock: Clock, lo: float, hi: float) -> np.ndarray:
+def _harmonic_numbers(source: Clock | Current, lo: float, hi: float) -> np.ndarray:
     """Harmonics whose occupied band touches [lo, hi]."""
-    f0 = clock.wave.frequency_hz
+    f0 = source.frequency_hz
     low_factor = high_factor = 1.0
-    if clock.spread is not None:
-        low_factor = clock.spread.centre_factor - clock.spread.deviation / 2
-        high_factor = clock.spread.centre_factor + clock.spread.deviation / 2
+    if source.spread is not None:
+        low_factor = source.spread.centre_factor - source.spread.deviation / 2
+        high_factor = source.spread.centre_factor + source.spread.deviation / 2
     first = max(1, int(np.ceil(lo / (f0 * high_factor) * (1 - 1e-12))))
     last = int(np.floor(hi / (f0 * low_factor) * (1 + 1e-12)))
     return np.arange(first, last + 1, dtype=np.int64)
 
 
-def _current_per_volt(clock: Clock, frequency_hz) -> np.ndarray:
-    if not clock.has_load:
+def _current_per_unit(source: Clock | Current, frequency_hz) -> np.ndarray:
+    """Source current per unit of the source's own amplitude: 1/|Z_load| for a clock, 1 for a current."""
+    if isinstance(source, Current):
+        return np.ones(np.shape(frequency_hz))
+    if not source.has_load:
         return np.full(np.shape(frequency_hz), np.nan)
-    return load_current(np.ones(np.shape(frequency_hz)), frequency_hz, clock.load_resistance_ohm,
-                        clock.load_capacitance_f)
+    return load_current(np.ones(np.shape(frequency_hz)), frequency_hz, source.load_resistance_ohm,
+                        source.load_capacitance_f)
 
 
-def path_gains(board: Board, clock: Clock, frequency_hz) -> dict[str, np.ndarray]:
-    """Each of the clock's paths: limit-unit level per volt of clock voltage harmonic."""
+def _escape(board: Board, source: Clock | Current, path_name: str, frequency_hz) -> np.ndarray:
+    """Complex fraction of the rail current that leaves through this path's termination."""
+    rail = board.rails[source.rail]
+    z_path = rail.supply_impedance(frequency_hz) + board.paths[path_name].termination(frequency_hz)
+    return escape_fraction(rail.decoupling_impedance(frequency_hz), z_path)
+
+
+def source_gains(board: Board, source: Clock | Current, frequency_hz) -> dict[str, np.ndarray]:
+    """Each of the source's paths: limit-unit level per unit of the source's amplitude.
+
+    The amplitude is the clock voltage for a clock and the pulse current for a
+    current source; escape paths see the part of the current that the rail's
+    decoupling lets through to their termination.
+    """
     f = np.asarray(frequency_hz, dtype=float)
-    amps = _current_per_volt(clock, f)
-    volts = np.ones(f.shape)
-    return {name: board.paths[name].reading(f, volts, amps, board.limit.distance_m) for name in clock.paths}
+    current = _current_per_unit(source, f)
+    voltage = np.ones(f.shape) if isinstance(source, Clock) else np.full(f.shape, np.nan)
+    gains = {}
+    for name in source.paths:
+        path = board.paths[name]
+        quantities = {"voltage": voltage, "current": current}
+        if path.input == "escape":
+            quantities["escape"] = current * np.abs(_escape(board, source, name, f))
+        gains[name] = path.reading(f, quantities, board.limit.distance_m)
+    return gains
 
 
 def _total_gain(gains: dict[str, np.ndarray]) -> np.ndarray:
@@ -180,14 +207,14 @@ def _total_gain(gains: dict[str, np.ndarray]) -> np.ndarray:
 def clock_envelope_dbu(board: Board, clock: Clock, frequency_hz) -> np.ndarray:
     """The unspread spectral envelope carried through the clock's paths, in dB of the limit's unit."""
     v = rms(envelope(clock.wave, frequency_hz))
-    return db_micro(v * _total_gain(path_gains(board, clock, frequency_hz)))
+    return db_micro(v * _total_gain(source_gains(board, clock, frequency_hz)))
 
 
-def _path_flags(board: Board, clock: Clock, f: np.ndarray) -> dict[str, np.ndarray]:
+def _path_flags(board: Board, source: Clock | Current, f: np.ndarray) -> dict[str, np.ndarray]:
     near = np.zeros(f.shape, bool)
     large = np.zeros(f.shape, bool)
     wavelength = 299_792_458.0 / f
-    for name in clock.paths:
+    for name in source.paths:
         path = board.paths[name]
         if isinstance(path, (LoopPath, CablePath)):
             near |= near_field(f, path.distance_m or board.limit.distance_m)
@@ -212,9 +239,9 @@ def _tuning_grid(lo_hz: np.ndarray, hi_hz: np.ndarray, step_hz: np.ndarray):
 
 
 @dataclass(frozen=True)
-class _ClockPart:
+class _SourcePart:
     lines: SourceLines
-    clock: Clock
+    source: Clock | Current
     n: np.ndarray
     f: np.ndarray
     band_lo: np.ndarray
@@ -227,30 +254,90 @@ class _ClockPart:
     unspread: SourceLines | None
 
 
-def _clock_part(board: Board, clock: Clock, lo: float, hi: float) -> _ClockPart:
-    wave, spread = clock.wave, clock.spread
-    n = _harmonic_numbers(clock, lo, hi)
-    f = n * wave.frequency_hz
-    phasor = harmonic_phasors(wave, n) / np.sqrt(2)  # RMS
-    gains = path_gains(board, clock, f)
-    total = _total_gain(gains)
-    unmodulated = SourceLines(clock.name, clock.reference, wave.frequency_hz, f, phasor * total)
+def _phasors(source: Clock | Current, n: np.ndarray) -> np.ndarray:
+    """RMS complex harmonics of the source's own amplitude (clock voltage or pulse current)."""
+    if isinstance(source, Clock):
+        peak = harmonic_phasors(source.wave, n)
+    else:
+        peak = triangle_pulse_phasors(source.peak_a, source.width_s, source.frequency_hz, n, source.per,
+                                      source.duty)
+    return peak / np.sqrt(2)
+
+
+def _source_part(board: Board, source: Clock | Current, lo: float, hi: float) -> _SourcePart:
+    spread, f0 = source.spread, source.frequency_hz
+    n = _harmonic_numbers(source, lo, hi)
+    f = n * f0
+    phasor = _phasors(source, n)
+    gains = source_gains(board, source, f)
+    unmodulated = SourceLines(source.name, source.reference, f0, f, phasor * _total_gain(gains))
     if spread is None:
         lines, unspread = unmodulated, None
         band_lo = band_hi = f
         tuning, owner = f.copy(), np.arange(n.size)
     else:
-        line_hz, amp, _ = harmonic_lines(spread, wave.frequency_hz, n, phasor)
+        line_hz, amp, _ = harmonic_lines(spread, f0, n, phasor)
         order = np.argsort(line_hz, kind="stable")
         line_hz = line_hz[order]
-        amp = amp[order] * _total_gain(path_gains(board, clock, line_hz))
-        lines = SourceLines(clock.name, clock.reference, spread.rate_hz, line_hz, amp, modulated=True)
+        amp = amp[order] * _total_gain(source_gains(board, source, line_hz))
+        lines = SourceLines(source.name, source.reference, spread.rate_hz, line_hz, amp, modulated=True)
         unspread = unmodulated
-        band_lo, band_hi = occupied_band_hz(spread, wave.frequency_hz, n)
+        band_lo, band_hi = occupied_band_hz(spread, f0, n)
         rbw = resolution_bandwidth_hz(0.5 * (band_lo + band_hi))
         tuning, owner = _tuning_grid(band_lo - rbw / 2, band_hi + rbw / 2, rbw / 4)
-    return _ClockPart(lines, clock, n, f, band_lo, band_hi, np.abs(phasor), np.abs(phasor) *
-                      _current_per_volt(clock, f), gains, tuning, owner, unspread)
+    magnitude = np.abs(phasor)
+    current = magnitude * _current_per_unit(source, f)
+    voltage = magnitude if isinstance(source, Clock) else np.full(f.shape, np.nan)
+    return _SourcePart(lines, source, n, f, band_lo, band_hi, voltage, current, gains, tuning, owner, unspread)
+
+
+def _decoupling_columns(board: Board, part: _SourcePart, own: dict, share: dict, limit: dict, span_hz):
+    """|Z_dec|, suppression, the largest |Z_dec| that keeps the guard band, and the rail flags.
+
+    The escape paths' readings scale with |Z_dec / (Z_dec + Z_path)|.  Holding
+    the other paths fixed, the escape part may rise to what the limit minus the
+    guard band leaves; inverting the divider of the dominant escape path (with
+    the present phase of Z_dec) gives the required |Z_dec|.
+    """
+    source, f, rows = part.source, part.f, part.n.size
+    none = np.full(rows, np.nan)
+    flags = {name: np.zeros(rows, bool) for name in FLAGS[5:]}
+    if source.rail is None:
+        return none, none, none, flags
+    rail = board.rails[source.rail]
+    z_dec = rail.decoupling_impedance(f)
+    escaping = [p for p in source.paths if board.paths[p].input == "escape"]
+    if escaping:
+        fractions = {p: _escape(board, source, p, f) for p in escaping}
+        suppression = np.min([-20 * np.log10(np.abs(d)) for d in fractions.values()], axis=0)
+    else:  # no escape path: against a short at the connector
+        suppression = -20 * np.log10(np.abs(escape_fraction(z_dec, rail.supply_impedance(f))))
+    required = np.full(rows, np.inf)
+    if escaping:
+        dominant = max(escaping, key=lambda p: np.nanmax(share[p]) if np.isfinite(share[p]).any() else -1)
+        d_now = np.abs(fractions[dominant])
+        z_path = rail.supply_impedance(f) + board.paths[dominant].termination(f)
+        for det in own:
+            target = from_db(limit[det] - board.guard_band_db, 1e-6)
+            escape = np.sqrt(sum((own[det] * share[p]) ** 2 for p in escaping))
+            other = np.sqrt(sum((own[det] * share[p]) ** 2 for p in source.paths if p not in escaping))
+            with np.errstate(invalid="ignore", divide="ignore"):
+                allowed = np.sqrt(np.maximum(target**2 - other**2, 0.0)) / escape
+                d = allowed * d_now
+                rotated = (z_path * np.exp(-1j * np.angle(z_dec))).real
+                a, b, c = 1 - d**2, -2 * d**2 * rotated, -(d**2) * np.abs(z_path) ** 2
+                root = np.where(a > 0, (-b + np.sqrt(b * b - 4 * a * c)) / (2 * a), np.inf)
+            required = np.where(np.isfinite(target) & (escape > 0), np.fmin(required, root), required)
+    required = np.where(np.isinf(required), np.nan, required)
+    flags["decoupling-insufficient"] = np.abs(z_dec) > np.nan_to_num(required, nan=np.inf)
+    if rail.target_ohm is not None:
+        flags["above-target-impedance"] = np.abs(z_dec) > rail.target_ohm
+    grid = np.geomspace(span_hz[0] / 10, span_hz[1] * 2, 4000)
+    for _, _, lo, hi in anti_resonances(grid, rail.decoupling_impedance(grid)):
+        flags["near-anti-resonance"] |= (f >= lo) & (f <= hi)
+    live = part.v_rms > 0 if isinstance(source, Clock) else part.i_rms > 0
+    flags = {k: v & live for k, v in flags.items()}
+    return np.abs(z_dec), suppression, required, flags
 
 
 def _combine(per_source: list[dict[str, np.ndarray]], references: list[str | None], detectors):
@@ -271,7 +358,7 @@ def _row_max(values: np.ndarray, owner: np.ndarray, rows: int) -> np.ndarray:
     return np.maximum.reduceat(values, starts) if values.size else np.zeros(rows)
 
 
-def _overlap_flags(parts: list[_ClockPart]) -> list[dict[str, np.ndarray]]:
+def _overlap_flags(parts: list[_SourcePart]) -> list[dict[str, np.ndarray]]:
     """Rows whose band comes within one RBW of another source's (non-null) harmonic."""
     flags = []
     for part in parts:
@@ -280,14 +367,14 @@ def _overlap_flags(parts: list[_ClockPart]) -> list[dict[str, np.ndarray]]:
         for other in parts:
             if other is part:
                 continue
-            live = other.v_rms > 0
+            live = other.i_rms > 0 if isinstance(other.source, Current) else other.v_rms > 0
             lo_o, hi_o = other.band_lo[live], other.band_hi[live]
             order = np.argsort(lo_o)
             lo_o, hi_o = lo_o[order], np.maximum.accumulate(hi_o[order]) if hi_o.size else hi_o
             # the last band starting before our upper edge (+ RBW) must end after our lower edge (- RBW)
             k = np.searchsorted(lo_o, part.band_hi + rbw, side="right") - 1
             hit = (k >= 0) & (hi_o[np.maximum(k, 0)] >= part.band_lo - rbw) if lo_o.size else np.zeros(part.n.shape, bool)
-            mine[f"overlaps:{other.clock.name}"] = hit & (part.v_rms > 0)
+            mine[f"overlaps:{other.source.name}"] = hit
         flags.append(mine)
     return flags
 
@@ -306,12 +393,12 @@ def estimate(board: Board) -> Estimate:
     """
     lo, hi = analysis_span_hz(board)
     detectors = board.limit.detectors
-    parts = [_clock_part(board, clock, lo, hi) for clock in board.clocks]
+    parts = [_source_part(board, source, lo, hi) for source in board.sources]
     tuning = np.concatenate([p.tuning for p in parts]) if parts else np.array([])
     segments = np.cumsum([0] + [p.tuning.size for p in parts])
     per_source = [sweep(p.lines.line_hz, p.lines.line_amplitude, p.lines.grid_hz, tuning, detectors)
                   for p in parts]
-    combined = _combine(per_source, [p.clock.reference for p in parts], detectors)
+    combined = _combine(per_source, [p.source.reference for p in parts], detectors)
     limit_at_tuning = board.limit.levels(tuning) if tuning.size else {d: np.array([]) for d in detectors}
     overlaps = _overlap_flags(parts)
 
@@ -325,7 +412,8 @@ def estimate(board: Board) -> Estimate:
 
         own = {d: per_row(per_source[k][d]) for d in detectors}
         # a harmonic on a spectral null has no reading of its own, whatever else sits at its frequency
-        reading = {d: np.where(part.v_rms > 0, per_row(combined[d]), 0.0) for d in detectors}
+        live = np.abs(_phasors(part.source, part.n)) > 0
+        reading = {d: np.where(live, per_row(combined[d]), 0.0) for d in detectors}
         limit = {d: -per_row(-np.where(np.isnan(limit_at_tuning[d]), -np.inf, limit_at_tuning[d]))
                  for d in detectors}
         limit = {d: np.where(np.isinf(v), np.nan, v) for d, v in limit.items()}
@@ -337,16 +425,18 @@ def estimate(board: Board) -> Estimate:
             plain = sweep(part.unspread.line_hz, part.unspread.line_amplitude, part.unspread.grid_hz, part.f,
                           detectors)
             reduction = {d: db_micro(plain[d]) - db_micro(own[d]) for d in detectors}
-        flags = _path_flags(board, part.clock, part.f)
-        flags["spectral-null"] = part.v_rms == 0
+        flags = _path_flags(board, part.source, part.f)
+        flags["spectral-null"] = ~live
         flags.update(overlaps[k])
+        z_dec, suppression, required, rail_flags = _decoupling_columns(board, part, own, share, limit, (lo, hi))
+        flags.update(rail_flags)
         columns.append(dict(
-            source=np.full(rows, part.clock.name, dtype=object),
+            source=np.full(rows, part.source.name, dtype=object),
             harmonic=part.n,
             frequency_hz=part.f,
             band_lo_hz=np.asarray(part.band_lo, dtype=float),
             band_hi_hz=np.asarray(part.band_hi, dtype=float),
-            spread=np.full(rows, part.clock.spread is not None),
+            spread=np.full(rows, part.source.spread is not None),
             line_dbuv=db_micro(part.v_rms),
             line_dbua=db_micro(part.i_rms),
             path_readings={p: {d: db_micro(own[d] * share[p]) for d in detectors} for p in part.gains},
@@ -354,9 +444,12 @@ def estimate(board: Board) -> Estimate:
             spread_reduction_db=reduction,
             limits=limit,
             flags=flags,
+            decoupling_impedance_ohm=z_dec,
+            required_impedance_ohm=required,
+            suppression_db=suppression,
         ))
     rows = _assemble(columns, board, detectors)
-    return Estimate(board, (lo, hi), rows, {c.name: c.paths for c in board.clocks}, tuple(p.lines for p in parts))
+    return Estimate(board, (lo, hi), rows, {s.name: s.paths for s in board.sources}, tuple(p.lines for p in parts))
 
 
 def _assemble(columns: list[dict], board: Board, detectors) -> Rows:
@@ -412,6 +505,9 @@ def _assemble(columns: list[dict], board: Board, detectors) -> Rows:
         worst_margin_db=srt(worst),
         worst_detector=srt(worst_det),
         flags={k: srt(v) for k, v in flags.items()},
+        decoupling_impedance_ohm=srt(stack("decoupling_impedance_ohm")),
+        required_impedance_ohm=srt(stack("required_impedance_ohm")),
+        suppression_db=srt(stack("suppression_db")),
     )
 
 

@@ -31,6 +31,7 @@ __all__ = [
     "rms",
     "load_current",
     "triangle_pulse_amplitudes",
+    "triangle_pulse_phasors",
 ]
 
 #: Fraction of the 0-100 % ramp time that an edge measured between these
@@ -322,6 +323,14 @@ def triangle_pulse_amplitudes(
     ----------
     Paul (2006), sec. 3.2, trapezoid spectrum with tau = tr.
     """
+    return np.abs(triangle_pulse_phasors(peak_a, width_s, frequency_hz, n, per, duty))
+
+
+def triangle_pulse_phasors(peak_a, width_s, frequency_hz, n, per="cycle", duty=0.5) -> np.ndarray:
+    """Complex harmonics of the triangular pulse train of :func:`triangle_pulse_amplitudes`.
+
+    Phase referred to the middle of the first pulse's rise; exact nulls are zeros.
+    """
     if per not in ("cycle", "edge"):
         raise ValueError(f"per must be 'cycle' or 'edge', got {per!r}")
     spacing = (min(duty, 1 - duty) if per == "edge" else 1.0) / frequency_hz
@@ -330,9 +339,9 @@ def triangle_pulse_amplitudes(
             f"pulse width must be > 0 s and fit between successive pulses ({spacing:.4g} s)"
         )
     half = 0.5 * width_s
-    single = harmonic_amplitudes(Trapezoid(frequency_hz, peak_a, half * frequency_hz, half, half), n)
+    single = harmonic_phasors(Trapezoid(frequency_hz, peak_a, half * frequency_hz, half, half), n)
     if per == "cycle":
         return single
     x = np.asarray(n, dtype=float) * duty
-    pair = np.abs(1.0 + np.exp(-2j * np.pi * x))
+    pair = 1.0 + np.exp(-2j * np.pi * x)
     return np.where(_is_integer(x - 0.5), 0.0, single * pair)

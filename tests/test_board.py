@@ -42,8 +42,8 @@ MALFORMED = {
                              "clock[clk].load.inductance"),
     "loop on a conducted limit": (replace("cispr32-class-b-radiated-10m", "fcc15-class-b-conducted"),
                                   "path[loop1].kind"),
-    "rail not yet": (BASE_BOARD + '\n[[rail]]\nname = "r"\nvoltage = "3.3 V"\n', "rail"),
-    "current not yet": (BASE_BOARD + '\n[[current]]\nname = "x"\n', "current"),
+    "rail without parts": (BASE_BOARD + '\n[[rail]]\nname = "r"\nvoltage = "3.3 V"\n', "rail[r].part"),
+    "current without frequency": (BASE_BOARD + '\n[[current]]\nname = "x"\n', "current[x].clock"),
     "spread without rate": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "0.5 %" }'),
                             "clock[clk].spread.rate"),
     "spread too deep": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "12 %", '
@@ -58,10 +58,10 @@ MALFORMED = {
                             'rate = "30 kHz" }'), "clock[clk].spread.mode"),
     "spread unknown key": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "1 %", '
                                    'rate = "30 kHz", shape = "sine" }'), "clock[clk].spread.shape"),
-    "escape not yet": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\ndrive = "escape"\n',
-                       "path[h].drive"),
-    "conducted not yet": (replace("cispr32-class-b-radiated-10m", "fcc15-class-b-conducted").replace(
-        'kind = "loop"\narea = "1 cm2"', 'kind = "conducted"'), "path[loop1].kind"),
+    "escape cable with a ratio": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\n'
+                                  'drive = "escape"\nratio = 0.1\n', "path[h].ratio"),
+    "conducted path without a rail": (replace("cispr32-class-b-radiated-10m", "fcc15-class-b-conducted").replace(
+        'kind = "loop"\narea = "1 cm2"', 'kind = "conducted"'), "clock[clk].rail"),
     "cable ratio above 1": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\nratio = 3\n',
                             "path[h].ratio"),
     "cable ratio missing": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\n', "path[h].ratio"),

@@ -7,6 +7,7 @@ from scipy import constants
 from emispec.coupling import (
     LOOP_CONSTANT,
     CablePath,
+    ConductedPath,
     LoopPath,
     TransferPath,
     cable_field,
@@ -83,7 +84,7 @@ def test_inverse_distance_scaling():
 def test_transfer_table_measured_at_another_distance_is_referred_to_the_limit_distance():
     # Source: 47 CFR 15.31(f)(1) inverse-distance extrapolation
     path = TransferPath("probe", "voltage", np.array([1e6, 1e9]), np.array([-20.0, -20.0]), distance_m=1.0)
-    at_3m = path.reading(np.array([1e8]), np.array([1.0]), None, 3.0)
+    at_3m = path.reading(np.array([1e8]), {"voltage": np.array([1.0])}, 3.0)
     assert db_micro(at_3m)[0] == pytest.approx(120 - 20 - 20 * np.log10(3.0))
 
 
@@ -103,10 +104,18 @@ def test_transfer_table_interpolates_linearly_in_db_over_log_f():
 
 
 def test_paths_use_the_right_source_quantity():
-    f, v, i = np.array([100e6]), np.array([1.0]), np.array([0.02])
+    f, i, escape = np.array([100e6]), np.array([0.02]), np.array([1e-4])
+    source = {"voltage": np.array([1.0]), "current": i, "escape": escape}
     loop = LoopPath("l", 1e-4)
-    assert loop.reading(f, v, i, 3.0) == pytest.approx(loop_field(f, i, 1e-4, 3.0))
+    assert loop.reading(f, source, 3.0) == pytest.approx(loop_field(f, i, 1e-4, 3.0))
     cable = CablePath("c", 1.0, ratio=1e-3)
-    assert cable.reading(f, v, i, 3.0) == pytest.approx(cable_field(f, 2e-5, 1.0, 3.0))
+    assert cable.input == "current" and cable.reading(f, source, 3.0) == pytest.approx(cable_field(f, 2e-5, 1.0, 3.0))
+    harness = CablePath("h", 1.0)
+    assert harness.input == "escape" and harness.reading(f, source, 3.0) == pytest.approx(
+        cable_field(f, escape, 1.0, 3.0))
+    assert harness.termination(f)[0] == 150.0  # CISPR 16-1-2 / IEC 61000-4-6 common-mode impedance
     current = TransferPath("t", "current", np.array([1e6, 1e9]), np.array([6.0, 6.0]))
-    assert current.reading(f, v, i, None) == pytest.approx(i * 10 ** (6 / 20))
+    assert current.reading(f, source, None) == pytest.approx(i * 10 ** (6 / 20))
+    mains = ConductedPath("m")
+    assert mains.reading(f, source, None) == pytest.approx(escape * np.abs(mains.termination(f)))
+    assert ConductedPath("m", measure="current").reading(f, source, None) == pytest.approx(escape)
