@@ -266,20 +266,20 @@ def _parse_path(file: str, name: str, table: dict, limit: Limit) -> Path:
         drive = r.choice("drive", ("ratio", "escape"), "ratio")
         length = r.quantity("length", "length", low=0, required=True)
         reflection = r.boolean("ground_reflection", True)
-        if drive == "escape":
-            if r.has("ratio"):
-                raise r.error("ratio", "only with drive = 'ratio'; an 'escape' cable carries the escaping rail current")
-            return CablePath(name, length, None, distance, reflection, _termination(r))
-        if r.has("termination"):
+        if drive == "ratio" and r.has("termination"):
             raise r.error("termination", "only with drive = 'escape'")
         raw = table.get("ratio")
-        if raw is None:
+        if raw is None and drive == "ratio":
             raise r.error("ratio", "missing; give the common-mode current relative to the source current, "
                           "e.g. '-30 dB' or 0.03")
-        if isinstance(raw, str) and raw.strip().endswith("dB"):
+        if raw is None:
+            ratio = 1.0
+        elif isinstance(raw, str) and raw.strip().endswith("dB"):
             ratio = float(from_db(r.quantity("ratio", "decibel", high=0, low=None)))
         else:
             ratio = r.quantity("ratio", "ratio", low=0, high=1)
+        if drive == "escape":
+            return CablePath(name, length, ratio, distance, reflection, _termination(r), drive="escape")
         return CablePath(name, length, ratio, distance, reflection)
     # transfer
     source = r.choice("input", ("voltage", "current", "escape"))
@@ -486,10 +486,10 @@ def board_from_mapping(data: dict, file: str = "<board>", base_dir: FilePath | N
     paths = {name: _parse_path(file, name, table, limit) for name, table in _named_tables(file, data, "path")}
     clocks = {name: _parse_clock(file, name, table, paths, rails)
               for name, table in _named_tables(file, data, "clock")}
-    if not clocks:
-        raise top.error("clock", "no clock defined; add at least one [[clock]] table")
     currents = tuple(_parse_current(file, name, table, paths, rails, clocks)
                      for name, table in _named_tables(file, data, "current"))
+    if not clocks and not currents:
+        raise top.error("clock", "no source defined; add at least one [[clock]] or [[current]] table")
     clash = set(clocks) & {c.name for c in currents}
     if clash:
         raise BoardError(file, f"current[{sorted(clash)[0]}].name", "a clock has this name; names must be unique")

@@ -7,6 +7,7 @@ import sys
 from pathlib import Path
 from typing import Optional
 
+import numpy as np
 import typer
 from rich import box
 from rich.console import Console
@@ -17,7 +18,8 @@ from .board import BoardError, load_board
 from .limits import LimitError, bundled_limits, load_limit
 from .margin import estimate as run_estimate
 from .receiver import band_names
-from .report import CAUTION, atomic_write, json_text, write_outputs
+from .report import CAUTION, atomic_write, file_part, json_text, write_outputs
+from .units import format_quantity
 
 app = typer.Typer(
     add_completion=False,
@@ -57,7 +59,8 @@ def _fmt(x: float) -> str:
 
 
 SHORT_FLAGS = {"over-limit": "OVER", "within-guard-band": "guard", "near-field": "near", "spectral-null": "null",
-               "loop-electrically-large": "big-loop"}
+               "loop-electrically-large": "big-loop", "decoupling-insufficient": "decap",
+               "above-target-impedance": ">Zt", "near-anti-resonance": "anti-res"}
 
 
 def _short_flag(flag: str) -> str:
@@ -110,7 +113,9 @@ def _print_table(result, count: int) -> None:
     table = Table(title=f"{board.title}\nworst {shown} of {len(rows)} harmonics against {board.limit.name} ({unit})",
                   title_style="bold", caption="reading, limit, margin: the detector with the least margin. SSC dB: what the spread "
                   "buys there. flags: OVER the limit, inside the guard band, near field, null (spectral "
-                  "null), +name (another clock within one RBW). --json and --out give every detector.", caption_style="dim")
+                  "null), +name (another source within one RBW), decap (decoupling lets too much escape), >Zt "
+                  "(above the target impedance), anti-res (near an anti-resonance). --json and --out give "
+                  "every detector.", caption_style="dim")
     for name, justify in (("source", "left"), ("n", "right"), ("MHz", "right"), ("band", "left"),
                           ("det", "left"), ("read", "right"), ("limit", "right"),
                           ("margin", "right"), ("SSC dB", "right"), ("flags", "left")):
@@ -160,6 +165,69 @@ def limits(name: Optional[str] = typer.Argument(None, help="Show this limit's po
         sources.append(f"[bold]{key}[/]: {limit.source}")
     out.print(table)
     out.print("Sources:\n" + "\n".join(sources))
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+def _part_cells(part: dict) -> list[str]:
+    kind = part["kind"]
+    if kind == "capacitor":
+        value = format_quantity(part["capacitance_f"], "F")
+        detail = f"ESR {format_quantity(part['esr_ohm'], 'ohm')}, L {format_quantity(part['inductance_h'], 'H')}"
+    elif kind == "plane":
+        value, detail = format_quantity(part["capacitance_f"], "F"), "plane pair"
+    elif kind == "regulator":
+        value = format_quantity(part["resistance_ohm"], "ohm")
+        detail = f"L {format_quantity(part['inductance_h'], 'H')}"
+    else:
+        value, detail = "measured", str(part["file"])
+    srf = format_quantity(part["srf_hz"], "Hz") if part["srf_hz"] else "-"
+    return [kind, value, detail, str(part["count"]), srf]
+
+
+@app.command()
+@_guarded
+def rails(
+    board: Path = typer.Argument(..., help="Board file (TOML)."),
+    out_dir: Path = typer.Option(Path("."), "--out", help="Folder for the rail plots (rail-NAME.png)."),
+) -> None:
+    """Each rail's parts with self-resonances, anti-resonance peaks, and a plot of |Z_dec| with the harmonics."""
+    from .decoupling import rail_summary
+    from .plot import png_bytes, rail_figure
+
+    result = run_estimate(load_board(board))
+    if not result.board.rails:
+        raise OutputError(f"{board}: rail: the board defines no [[rail]]")
+    rows = result.rows
+    for name, rail in result.board.rails.items():
+        summary = rail_summary(rail, result.span_hz)
+        target = f", target {format_quantity(rail.target_ohm, 'ohm')}" if rail.target_ohm else ""
+        table = Table(title=f"rail {name} ({rail.voltage_v:g} V{target})", title_style="bold")
+        for col in ("part", "value", "detail", "count", "self-resonance"):
+            table.add_column(col)
+        for part in summary["parts"]:
+            table.add_row(*_part_cells(part))
+        out.print(table)
+        for peak in summary["anti_resonances"]:
+            lo, hi = peak["band_hz"]
+            out.print(f"  anti-resonance {format_quantity(peak['frequency_hz'], 'Hz')}: "
+                      f"{format_quantity(peak['impedance_ohm'], 'ohm')} (within 3 dB from "
+                      f"{format_quantity(lo, 'Hz')} to {format_quantity(hi, 'Hz')})", markup=False)
+        on_rail = np.isin(rows.source, [s.name for s in result.board.sources if s.rail == name])
+        failing = on_rail & rows.flags["decoupling-insufficient"]
+        out.print(f"  {int(failing.sum())} of {int(on_rail.sum())} harmonics drawn from this rail escape more than "
+                  f"the guard band allows", markup=False)
+        for i in np.flatnonzero(failing)[:10]:
+            out.print(f"    {rows.source[i]} n={rows.harmonic[i]} {format_quantity(rows.frequency_hz[i], 'Hz')}: "
+                      f"|Z_dec| {format_quantity(rows.decoupling_impedance_ohm[i], 'ohm')}, needs <= "
+                      f"{format_quantity(rows.required_impedance_ohm[i], 'ohm')}", markup=False)
+        target_path = Path(out_dir) / f"rail-{file_part(name)}.png"
+
+        def draw(path=target_path, name=name):
+            Path(out_dir).mkdir(parents=True, exist_ok=True)
+            atomic_write(path, png_bytes(rail_figure(result, name)))
+
+        _write(draw, str(target_path))
+        out.print(f"  plot: {target_path}", markup=False)
     out.print(f"[dim]{CAUTION}[/]")
 
 

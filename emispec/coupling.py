@@ -154,27 +154,30 @@ class LoopPath:
 class CablePath:
     """Common-mode radiation of an attached cable.
 
-    ``drive = "ratio"``: the cable carries ``ratio`` times the source current.
-    ``drive = "escape"``: it carries the rail current that escapes the
-    decoupling into the cable's common-mode ``termination_ohm``.
+    ``drive = "ratio"``: the cable's common-mode current is ``ratio`` times the
+    source current.  ``drive = "escape"``: it is ``ratio`` (default 1) times the
+    rail current that escapes the decoupling into the cable's common-mode
+    ``termination_ohm``; a ratio below 1 stands for the part of an escaping
+    differential current that converts to common mode.
     """
 
     name: str
     length_m: float
-    ratio: float | None = None
+    ratio: float = 1.0
     distance_m: float | None = None
     ground_reflection: bool = True
     termination_ohm: float = COMMON_MODE_OHM
+    drive: str = "ratio"
 
     @property
     def input(self) -> str:
-        return "current" if self.ratio is not None else "escape"
+        return "current" if self.drive == "ratio" else "escape"
 
     def termination(self, frequency_hz) -> np.ndarray:
         return np.full(np.shape(frequency_hz), self.termination_ohm, dtype=complex)
 
     def reading(self, frequency_hz, source, limit_distance_m):
-        current = self.ratio * source["current"] if self.ratio is not None else source["escape"]
+        current = self.ratio * source[self.input]
         return cable_field(frequency_hz, current, self.length_m, limit_distance_m, self.ground_reflection)
 
 

@@ -47,6 +47,8 @@ __all__ = [
     "target_impedance",
     "read_touchstone",
     "read_impedance_table",
+    "part_summary",
+    "rail_summary",
 ]
 
 
@@ -269,3 +271,36 @@ def read_impedance_table(path: Path) -> tuple[np.ndarray, np.ndarray]:
     if np.any(f <= 0) or np.any(np.diff(f) <= 0) or np.any(np.abs(z) == 0) or not np.all(np.isfinite(z)):
         raise TouchstoneError(f"{path}: frequencies must be > 0 and ascending, impedances finite and non-zero")
     return f, z
+
+
+def part_summary(kind: str, part) -> dict:
+    """What a rail listing shows of one part: its values and, for a capacitor, its self-resonance."""
+    if isinstance(part, Capacitor):
+        return {"kind": kind, "capacitance_f": part.capacitance_f, "esr_ohm": part.esr_ohm,
+                "inductance_h": part.inductance_h, "count": part.count,
+                "srf_hz": part.srf_hz if np.isfinite(part.srf_hz) else None}
+    if isinstance(part, Plane):
+        return {"kind": kind, "capacitance_f": part.capacitance_f, "count": 1, "srf_hz": None}
+    if isinstance(part, SeriesRL):
+        return {"kind": kind, "resistance_ohm": part.resistance_ohm, "inductance_h": part.inductance_h,
+                "count": 1, "srf_hz": None}
+    # a measured part resonates where its reactance changes sign
+    x = part.z_ohm.imag
+    crossing = np.flatnonzero((x[:-1] < 0) & (x[1:] >= 0))
+    srf = float(part.frequency_hz[crossing[0]]) if crossing.size else None
+    return {"kind": kind, "file": part.source, "count": part.count, "srf_hz": srf}
+
+
+def rail_summary(rail: Rail, span_hz: tuple[float, float]) -> dict:
+    """Parts with their self-resonances and the anti-resonance peaks of Z_dec around the analysed span."""
+    grid = np.geomspace(span_hz[0] / 10, span_hz[1] * 2, 4000)
+    return {
+        "name": rail.name,
+        "voltage_v": rail.voltage_v,
+        "target_impedance_ohm": rail.target_ohm,
+        "parts": [part_summary(kind, part) for kind, part in rail.parts],
+        "anti_resonances": [
+            {"frequency_hz": f, "impedance_ohm": z, "band_hz": [lo, hi]}
+            for f, z, lo, hi in anti_resonances(grid, rail.decoupling_impedance(grid))
+        ],
+    }

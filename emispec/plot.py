@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import io
+
 import matplotlib
 import matplotlib.ticker
 
@@ -12,9 +14,17 @@ import numpy as np  # noqa: E402
 
 from .margin import Estimate, clock_envelope_dbu  # noqa: E402
 
-__all__ = ["spectrum_figure", "swept_figure"]
+__all__ = ["spectrum_figure", "swept_figure", "rail_figure", "png_bytes"]
 
 DETECTOR_STYLE = {"QP": "-", "PK": "-.", "AV": "--", "RMS-AV": ":"}
+
+
+def png_bytes(figure, dpi: int = 120) -> bytes:
+    """The figure as PNG bytes; the figure is closed."""
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", dpi=dpi)
+    plt.close(figure)
+    return buffer.getvalue()
 
 
 def spectrum_figure(est: Estimate):
@@ -95,4 +105,52 @@ def swept_figure(est: Estimate, frequency_hz, readings: dict):
     top = max(top, limit_max) + 10
     ax.set_ylim(top - 100, top)
     _finish(fig, ax, est, "swept receiver readings")
+    return fig
+
+
+def rail_figure(est: Estimate, rail_name: str):
+    """|Z_dec| of one rail against frequency, with the harmonics drawn from it and what they need.
+
+    Marks each harmonic of the sources on the rail at |Z_dec|, the required
+    impedance of each harmonic (the largest |Z_dec| that keeps the guard band),
+    the target impedance and the supply path.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    board = est.board
+    rail = board.rails[rail_name]
+    lo, hi = est.span_hz
+    grid = np.geomspace(lo / 10, hi * 2, 3000)
+    fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
+    ax.loglog(grid, np.abs(rail.decoupling_impedance(grid)), color="black", lw=1.6, label="|Z_dec| at the IC pins")
+    ax.loglog(grid, np.abs(rail.supply_impedance(grid)), color="gray", lw=0.9, ls="--", label="|Z| of the supply path")
+    if rail.target_ohm is not None:
+        ax.axhline(rail.target_ohm, color="tab:orange", lw=1.2, label=f"target {rail.target_ohm:g} ohm")
+    rows = est.rows
+    names = [s.name for s in board.sources if s.rail == rail_name]
+    colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    for k, name in enumerate(names):
+        emitting = np.isfinite(np.fmax.reduce([rows.readings[d] for d in board.limit.detectors]))
+        mine = (rows.source == name) & np.isfinite(rows.decoupling_impedance_ohm) & emitting
+        color = colors[k % len(colors)]
+        ax.plot(rows.frequency_hz[mine], rows.decoupling_impedance_ohm[mine], "o", ms=3, color=color,
+                label=f"{name} harmonics")
+        need = mine & np.isfinite(rows.required_impedance_ohm)
+        ax.plot(rows.frequency_hz[need], rows.required_impedance_ohm[need], "v", ms=5, color=color, mfc="none",
+                label=f"{name}: required |Z_dec|")
+    failing = rows.flags["decoupling-insufficient"] & np.isin(rows.source, names)
+    if failing.any():
+        ax.plot(rows.frequency_hz[failing], rows.decoupling_impedance_ohm[failing], "x", color="red", ms=8, mew=2,
+                label="decoupling insufficient")
+    ax.axvspan(lo, hi, color="tab:blue", alpha=0.05, label="analysed span")
+    ax.set_xlim(grid[0], grid[-1])
+    ax.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda x, _: f"{x / 1e6:g}"))
+    ax.set_xlabel("Frequency [MHz]")
+    ax.set_ylabel("|Z| [ohm]")
+    ax.set_title(f"{board.title}: rail {rail_name} ({rail.voltage_v:g} V)", fontsize=10)
+    ax.grid(True, which="both", alpha=0.3)
+    fig.legend(fontsize=8, loc="outside right upper")
+    fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
     return fig

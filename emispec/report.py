@@ -19,6 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
+from .decoupling import rail_summary
 from .margin import FLAGS, Estimate
 
 __all__ = ["CAUTION", "SCHEMA", "result_dict", "row_dict", "csv_text", "swept_csv_text", "markdown_text", "atomic_write", "write_outputs"]
@@ -43,7 +44,7 @@ def row_dict(est: Estimate, i: int) -> dict:
     r = est.rows
     detectors = est.board.limit.detectors
     limits = {d: _num(r.limits[d][i]) for d in detectors if math.isfinite(r.limits[d][i])}
-    return {
+    row = {
         "source": str(r.source[i]),
         "harmonic": int(r.harmonic[i]),
         "frequency_hz": float(r.frequency_hz[i]),
@@ -61,6 +62,11 @@ def row_dict(est: Estimate, i: int) -> dict:
         "worst_margin_db": _num(r.worst_margin_db[i]),
         "flags": r.flag_list(i),
     }
+    if est.board.rails:
+        row["decoupling_impedance_ohm"] = _num(r.decoupling_impedance_ohm[i], 6)
+        row["required_impedance_ohm"] = _num(r.required_impedance_ohm[i], 6)
+        row["suppression_db"] = _num(r.suppression_db[i])
+    return row
 
 
 def result_dict(est: Estimate) -> dict:
@@ -86,6 +92,7 @@ def result_dict(est: Estimate) -> dict:
             "detectors": list(limit.detectors),
         },
         "guard_band_db": board.guard_band_db,
+        "rails": [rail_summary(rail, est.span_hz) for rail in board.rails.values()],
         "span_hz": [est.span_hz[0], est.span_hz[1]],
         "rows": [row_dict(est, i) for i in range(len(est.rows))],
         "summary": {
@@ -102,13 +109,21 @@ def _cell(x) -> str:
     return "null" if x is None or (isinstance(x, float) and not math.isfinite(x)) else f"{x:.2f}"
 
 
+RAIL_COLUMNS = ("decoupling_impedance_ohm", "required_impedance_ohm", "suppression_db")
+
+
 def _table_columns(est: Estimate) -> list[str]:
     dets = est.board.limit.detectors
     return (
         ["source", "harmonic", "frequency_hz", "band_lo_hz", "band_hi_hz", "line_dbuv", "line_dbua"]
         + [f"{kind}_{d}" for d in dets for kind in ("reading", "limit", "margin", "ssc_reduction")]
+        + (list(RAIL_COLUMNS) if est.board.rails else [])
         + ["worst_margin_db", "flags"]
     )
+
+
+def _impedance_cell(x) -> str:
+    return "null" if not math.isfinite(x) else f"{x:.4g}"
 
 
 def _table_rows(est: Estimate, count: int | None = None):
@@ -118,6 +133,8 @@ def _table_rows(est: Estimate, count: int | None = None):
             [str(r.source[i]), str(int(r.harmonic[i])), f"{r.frequency_hz[i]:.10g}", f"{r.band_lo_hz[i]:.10g}",
              f"{r.band_hi_hz[i]:.10g}", _cell(r.line_dbuv[i]), _cell(r.line_dbua[i])]
             + [_cell(col[d][i]) for d in dets for col in (r.readings, r.limits, r.margins, r.spread_reduction_db)]
+            + ([_impedance_cell(r.decoupling_impedance_ohm[i]), _impedance_cell(r.required_impedance_ohm[i]),
+                _cell(r.suppression_db[i])] if est.board.rails else [])
             + [_cell(r.worst_margin_db[i]), " ".join(r.flag_list(i))]
         )
 
@@ -179,6 +196,11 @@ def markdown_text(est: Estimate, count: int = 50) -> str:
     return "\n".join(lines)
 
 
+def file_part(name: str) -> str:
+    """A user's name made safe for a file name."""
+    return "".join(c if c.isalnum() or c in "-_." else "_" for c in name)
+
+
 def atomic_write(path: Path, data: str | bytes) -> None:
     """Write ``data`` to a temporary file beside ``path``, then rename it into place."""
     path = Path(path)
@@ -199,13 +221,13 @@ def json_text(est: Estimate) -> str:
 
 
 def write_outputs(est: Estimate, out_dir: Path, stem: str = "estimate") -> list[Path]:
-    """Write CSV, Markdown, JSON and the spectrum PNG into ``out_dir``.
+    """Write CSV, Markdown, JSON, the swept spectrum and the plots (spectrum, swept, rails) into ``out_dir``.
 
     All files are first rendered into a temporary folder inside ``out_dir``
     and then renamed into place, so a failure leaves nothing half-written.
     """
     from .margin import swept_spectrum
-    from .plot import spectrum_figure, swept_figure  # matplotlib is slow to import; only here
+    from .plot import png_bytes, rail_figure, spectrum_figure, swept_figure  # matplotlib is slow to import
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -220,12 +242,12 @@ def write_outputs(est: Estimate, out_dir: Path, stem: str = "estimate") -> list[
         }
         for name, text in contents.items():
             (staging / name).write_text(text, encoding="utf-8")
-        import matplotlib.pyplot as plt
-
-        for name, figure in ((f"{stem}-spectrum.png", spectrum_figure(est)),
-                             (f"{stem}-swept.png", swept_figure(est, swept_hz, swept))):
-            figure.savefig(staging / name, dpi=120)
-            plt.close(figure)
+        figures = [(f"{stem}-spectrum.png", lambda: spectrum_figure(est)),
+                   (f"{stem}-swept.png", lambda: swept_figure(est, swept_hz, swept))]
+        figures += [(f"{stem}-rail-{file_part(name)}.png", lambda name=name: rail_figure(est, name))
+                    for name in est.board.rails]
+        for name, draw in figures:
+            (staging / name).write_bytes(png_bytes(draw()))
         written = []
         for item in sorted(staging.iterdir()):
             os.replace(item, out_dir / item.name)

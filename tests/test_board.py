@@ -58,8 +58,10 @@ MALFORMED = {
                             'rate = "30 kHz" }'), "clock[clk].spread.mode"),
     "spread unknown key": (replace('swing = "3.3 V"', 'swing = "3.3 V"\nspread = { mode = "down", deviation = "1 %", '
                                    'rate = "30 kHz", shape = "sine" }'), "clock[clk].spread.shape"),
-    "escape cable with a ratio": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\n'
-                                  'drive = "escape"\nratio = 0.1\n', "path[h].ratio"),
+    "escape cable ratio above 0 dB": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\n'
+                                      'drive = "escape"\nratio = "6 dB"\n', "path[h].ratio"),
+    "termination with a ratio drive": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\n'
+                                       'ratio = 0.1\ntermination = "100 ohm"\n', "path[h].termination"),
     "conducted path without a rail": (replace("cispr32-class-b-radiated-10m", "fcc15-class-b-conducted").replace(
         'kind = "loop"\narea = "1 cm2"', 'kind = "conducted"'), "clock[clk].rail"),
     "cable ratio above 1": (BASE_BOARD + '\n[[path]]\nname = "h"\nkind = "cable"\nlength = "1 m"\nratio = 3\n',
@@ -139,3 +141,76 @@ def test_spread_is_read_in_si(write_board):
     assert (spread.mode, spread.profile) == ("centre", "sine")
     assert spread.deviation == pytest.approx(0.005) and spread.rate_hz == pytest.approx(31.5e3)
     assert board.clocks[0].reference == "xtal"
+
+
+RAIL_BASE = BASE_BOARD.replace('limit = "cispr32-class-b-radiated-10m"', 'limit = "cispr32-class-b-conducted-mains"').replace(
+    'kind = "loop"\narea = "1 cm2"', 'kind = "conducted"').replace('paths = ["loop1"]', 'paths = ["loop1"]\nrail = "r"') + """
+[[rail]]
+name = "r"
+voltage = "3.3 V"
+supply_path = { inductance = "20 nH" }
+[[rail.part]]
+kind = "capacitor"
+capacitance = "100 nF"
+esr = "20 mohm"
+esl = "1 nH"
+count = 2
+
+[[current]]
+name = "x"
+clock = "clk"
+peak = "1 A"
+width = "1 ns"
+rail = "r"
+paths = ["loop1"]
+"""
+
+
+def rail_case(old, new):
+    assert old in RAIL_BASE, old
+    return RAIL_BASE.replace(old, new)
+
+
+RAIL_MALFORMED = {
+    "part kind": (rail_case('kind = "capacitor"', 'kind = "inductor"'), "rail[r].part[0].kind"),
+    "count zero": (rail_case("count = 2", "count = 0"), "rail[r].part[0].count"),
+    "count fraction": (rail_case("count = 2", "count = 1.5"), "rail[r].part[0].count"),
+    "capacitance in volts": (rail_case('capacitance = "100 nF"', 'capacitance = "100 V"'),
+                             "rail[r].part[0].capacitance"),
+    "plane permittivity": (rail_case('kind = "capacitor"\ncapacitance = "100 nF"\nesr = "20 mohm"\nesl = "1 nH"\n'
+                                     'count = 2', 'kind = "plane"\narea = "10 cm2"\nseparation = "0.1 mm"\n'
+                                     'permittivity = "high"'), "rail[r].part[0].permittivity"),
+    "touchstone missing file": (rail_case('kind = "capacitor"\ncapacitance = "100 nF"\nesr = "20 mohm"\n'
+                                          'esl = "1 nH"\ncount = 2', 'kind = "table"\nfile = "nope.csv"'),
+                                "rail[r].part[0].file"),
+    "two targets": (rail_case('voltage = "3.3 V"', 'voltage = "3.3 V"\ntarget_impedance = "0.1 ohm"\nripple = "5 %"\n'
+                                                   'transient_current = "1 A"'), "rail[r].target_impedance"),
+    "ripple without current": (rail_case('voltage = "3.3 V"', 'voltage = "3.3 V"\nripple = "5 %"'),
+                               "rail[r].transient_current"),
+    "unknown rail": (rail_case('rail = "r"\n', 'rail = "q"\n'), "clock[clk].rail"),
+    "supply path key": (rail_case('supply_path = { inductance = "20 nH" }', 'supply_path = { length = "2 cm" }'),
+                        "rail[r].supply_path.length"),
+    "current too wide": (rail_case('width = "1 ns"', 'width = "30 ns"'), "current[x].width"),
+    "current unknown clock": (rail_case('clock = "clk"', 'clock = "clock"'), "current[x].clock"),
+    "current own duty while following": (rail_case('clock = "clk"', 'clock = "clk"\nduty_cycle = "40 %"'),
+                                         "current[x].duty_cycle"),
+    "current without rail": ("".join(RAIL_BASE.rsplit('rail = "r"\n', 1)), "current[x].rail"),
+    "current peak in volts": (rail_case('peak = "1 A"', 'peak = "1 V"'), "current[x].peak"),
+    "lisn variant": (rail_case('kind = "conducted"', 'kind = "conducted"\nlisn = "75uH"'), "path[loop1].lisn"),
+    "current named like a clock": (rail_case('name = "x"', 'name = "clk"'), "current[clk].name"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(RAIL_MALFORMED))
+def test_malformed_rails_and_currents_exit_2_naming_the_key(case, runner, write_board):
+    text, key = RAIL_MALFORMED[case]
+    path = write_board(text)
+    result = runner.invoke(app, ["estimate", str(path)])
+    assert result.exit_code == 2, result.output
+    assert key in result.stderr and "\n" not in result.stderr.strip()
+
+
+def test_rail_base_is_valid(write_board):
+    board = load_board(write_board(RAIL_BASE))
+    assert board.rails["r"].parts[0][1].count == 2 and board.currents[0].frequency_hz == 50e6
+    assert board.clocks[0].rail == "r"

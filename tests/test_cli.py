@@ -42,8 +42,8 @@ def test_out_writes_all_artifacts(runner, tmp_path):
     result = runner.invoke(app, ["estimate", str(DEMO), "--out", str(out)])
     assert result.exit_code == 0, result.output
     names = sorted(p.name for p in out.iterdir())
-    assert names == ["estimate-spectrum.png", "estimate-swept.csv", "estimate-swept.png", "estimate.csv",
-                     "estimate.json", "estimate.md"]
+    assert names == ["estimate-rail-io_3v3.png", "estimate-spectrum.png", "estimate-swept.csv", "estimate-swept.png",
+                     "estimate.csv", "estimate.json", "estimate.md"]
     swept = [line for line in (out / "estimate-swept.csv").read_text().splitlines() if not line.startswith("#")]
     assert swept[0].startswith("frequency_hz,PK,QP,AV")
     assert (out / "estimate-spectrum.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

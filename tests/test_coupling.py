@@ -110,7 +110,7 @@ def test_paths_use_the_right_source_quantity():
     assert loop.reading(f, source, 3.0) == pytest.approx(loop_field(f, i, 1e-4, 3.0))
     cable = CablePath("c", 1.0, ratio=1e-3)
     assert cable.input == "current" and cable.reading(f, source, 3.0) == pytest.approx(cable_field(f, 2e-5, 1.0, 3.0))
-    harness = CablePath("h", 1.0)
+    harness = CablePath("h", 1.0, drive="escape")
     assert harness.input == "escape" and harness.reading(f, source, 3.0) == pytest.approx(
         cable_field(f, escape, 1.0, 3.0))
     assert harness.termination(f)[0] == 150.0  # CISPR 16-1-2 / IEC 61000-4-6 common-mode impedance

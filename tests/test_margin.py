@@ -242,3 +242,142 @@ def test_closely_spaced_harmonics_share_the_filter(write_board):
     expected = detect(env[None, :], 1 / 6e3, BANDS[1], ("QP", "AV"))
     assert rows.readings["QP"][i] == pytest.approx(db_micro(expected["QP"][0]), abs=0.02)
     assert rows.readings["AV"][i] == pytest.approx(db_micro(expected["AV"][0]), abs=0.02)
+
+
+RAIL_BOARD = """\
+title = "rail check"
+guard_band = "6 dB"
+limit = "cispr32-class-b-conducted-mains"
+
+[[rail]]
+name = "core"
+voltage = "1.2 V"
+supply_path = {{ inductance = "30 nH", resistance = "0.05 ohm" }}
+target_impedance = "0.05 ohm"
+[[rail.part]]
+kind = "regulator"
+resistance = "{r_reg}"
+
+[[clock]]
+name = "clk"
+frequency = "2 MHz"
+rise_time = "5 ns"
+swing = "3.3 V"
+duty_cycle = "40 %"
+load = {{ resistance = "100 ohm" }}
+rail = "core"
+paths = ["mains"]
+
+[[current]]
+name = "core_pulses"
+clock = "clk"
+peak = "0.5 A"
+width = "20 ns"
+per = "edge"
+rail = "core"
+paths = ["mains"]
+
+[[path]]
+name = "mains"
+kind = "conducted"
+"""
+
+
+def test_conducted_reading_is_escaping_current_times_lisn(write_board):
+    # Source: current divider I Z_dec / (Z_dec + Z_path) into the CISPR 16-1-2 network 50 // (50 uH + 5 ohm),
+    # evaluated here from the formulas; the network itself is checked against ngspice in test_decoupling.py
+    from emispec.decoupling import lisn_impedance
+    from emispec.waveform import triangle_pulse_amplitudes
+
+    est = estimate(load_board(write_board(RAIL_BOARD.format(r_reg="0.2 ohm"))))
+    rows = est.rows
+    n = 3
+    f = n * 2e6
+    z_path = 0.05 + 2j * np.pi * f * 30e-9 + lisn_impedance([f])[0]
+    fraction = 0.2 / (0.2 + z_path)
+    wave = Trapezoid(2e6, 3.3, 0.4, 5e-9 / 0.8, 5e-9 / 0.8)
+    load_current = harmonic_amplitudes(wave, [n])[0] / np.sqrt(2) / 100
+    clk = np.flatnonzero((rows.source == "clk") & (rows.harmonic == n))[0]
+    assert rows.path_readings["mains"]["QP"][clk] == pytest.approx(
+        db_micro(load_current * abs(fraction) * abs(lisn_impedance([f])[0])), abs=1e-6)
+    assert rows.decoupling_impedance_ohm[clk] == pytest.approx(0.2)
+    assert rows.suppression_db[clk] == pytest.approx(-20 * np.log10(abs(fraction)))
+    pulses = triangle_pulse_amplitudes(0.5, 20e-9, 2e6, [n], per="edge", duty=0.4)[0] / np.sqrt(2)
+    cur = np.flatnonzero((rows.source == "core_pulses") & (rows.harmonic == n))[0]
+    assert np.isnan(rows.line_dbuv[cur]) and rows.line_dbua[cur] == pytest.approx(db_micro(pulses))
+    assert rows.path_readings["mains"]["AV"][cur] == pytest.approx(
+        db_micro(pulses * abs(fraction) * abs(lisn_impedance([f])[0])), abs=1e-6)
+    assert np.all(rows.flags["above-target-impedance"][np.isfinite(rows.readings["QP"])])
+
+
+def required_board(r_reg: str) -> str:
+    """The clock alone on the rail, read through the LISN (escape) and a weak direct coupling (not escape)."""
+    text = RAIL_BOARD.format(r_reg=r_reg)
+    text = text[:text.index("[[current]]")] + text[text.index("[[path]]"):]
+    return text.replace('paths = ["mains"]', 'paths = ["mains", "probe"]') + (
+        '\n[[path]]\nname = "probe"\nkind = "transfer"\ninput = "current"\n'
+        'gain = [["100 kHz", -30.0], ["30 MHz", -30.0]]\n')
+
+
+def test_required_impedance_just_keeps_the_guard_band(write_board):
+    # A purely resistive decoupling keeps its phase when scaled, so setting it to the reported required impedance
+    # must put that harmonic exactly at limit - guard band (self-consistency of the divider inversion)
+    est = estimate(load_board(write_board(required_board("2 ohm"))))
+    rows = est.rows
+    pick = np.flatnonzero(np.isfinite(rows.required_impedance_ohm) & (rows.required_impedance_ohm < 2.0)
+                          & (rows.required_impedance_ohm > 0.01))
+    assert pick.size, "some harmonics need less than the 2 ohm regulator"
+    assert np.all(rows.flags["decoupling-insufficient"][pick])
+    for i in pick[:3]:
+        n, required = rows.harmonic[i], rows.required_impedance_ohm[i]
+        again = estimate(load_board(write_board(required_board(f"{float(required)!r} ohm"), name="again.toml")))
+        j = np.flatnonzero(again.rows.harmonic == n)[0]
+        assert again.rows.worst_margin_db[j] == pytest.approx(6.0, abs=0.01)
+
+
+def test_current_follows_its_clock_spread(write_board):
+    text = RAIL_BOARD.format(r_reg="0.2 ohm").replace(
+        'duty_cycle = "40 %"', 'duty_cycle = "40 %"\nspread = { mode = "centre", deviation = "1 %", rate = "20 kHz" }')
+    board = load_board(write_board(text))
+    assert board.currents[0].spread is board.clocks[0].spread
+    est = estimate(board)
+    rows = est.rows
+    spread_rows = rows.spread & (rows.source == "core_pulses")
+    assert spread_rows.any() and np.all(rows.band_hi_hz[spread_rows] > rows.band_lo_hz[spread_rows])
+
+
+def test_anti_resonance_flag(write_board):
+    # 100 nF and 1 nF on one rail: |Z| peaks near 113 MHz (see test_decoupling.py); harmonics there are flagged
+    text = """\
+limit = "cispr32-class-b-radiated-3m"
+[[rail]]
+name = "r"
+voltage = "3.3 V"
+supply_path = { inductance = "20 nH" }
+[[rail.part]]
+kind = "capacitor"
+capacitance = "100 nF"
+esr = "20 mohm"
+esl = "1 nH"
+[[rail.part]]
+kind = "capacitor"
+capacitance = "1 nF"
+esr = "50 mohm"
+esl = "1 nH"
+[[current]]
+name = "pulses"
+frequency = "37.7 MHz"
+peak = "1 A"
+width = "2 ns"
+rail = "r"
+paths = ["harness"]
+[[path]]
+name = "harness"
+kind = "cable"
+length = "1 m"
+drive = "escape"
+"""
+    est = estimate(load_board(write_board(text)))
+    rows = est.rows
+    flagged = set(rows.harmonic[rows.flags["near-anti-resonance"]])
+    assert 3 in flagged and 1 not in flagged and 10 not in flagged  # 113.1 MHz in; 37.7 and 377 MHz out

@@ -20,8 +20,8 @@ def test_json_rows_match_the_columns(demo):
     data = result_dict(demo)
     assert len(data["rows"]) == len(demo.rows) == data["summary"]["rows"]
     for i, row in enumerate(data["rows"][:20]):
-        assert row["frequency_hz"] == pytest.approx(row["harmonic"] * {"mcu_clk": 24e6, "sdram_clk": 100e6,
-                                                                      "eth_ref": 25e6, "lcd_pclk": 9e6}[row["source"]])
+        f0 = {"mcu_clk": 24e6, "mcu_core": 24e6, "sdram_clk": 100e6, "eth_ref": 25e6, "lcd_pclk": 9e6}
+        assert row["frequency_hz"] == pytest.approx(row["harmonic"] * f0[row["source"]])
         assert set(row["paths"]) == set(demo.source_paths[row["source"]])
         worst = min(row["margin_db"].values())
         assert row["worst_margin_db"] == pytest.approx(worst, abs=1e-9)
@@ -92,3 +92,17 @@ def test_spread_rows_carry_band_and_reduction(demo):
     assert all(row["spread_reduction_db"]["QP"] is not None for row in spread_rows if row["readings"]["QP"])
     plain = [row for row in data["rows"] if row["source"] == "mcu_clk"]
     assert all(row["band_hz"] is None and row["spread_reduction_db"] is None for row in plain)
+
+
+def test_rail_columns_and_summary(demo):
+    data = result_dict(demo)
+    rail = data["rails"][0]
+    assert rail["name"] == "io_3v3" and rail["target_impedance_ohm"] == pytest.approx(3.3 * 0.05 / 0.5)
+    caps = [p for p in rail["parts"] if p["kind"] == "capacitor"]
+    # Source: f = 1 / (2 pi sqrt(L C)) for 100 nF with 0.6 + 0.6 nH
+    assert caps[0]["srf_hz"] == pytest.approx(1 / (2 * np.pi * np.sqrt(1.2e-9 * 100e-9)))
+    core = [row for row in data["rows"] if row["source"] == "mcu_core" and row["readings"]["QP"] is not None]
+    assert core and all(row["decoupling_impedance_ohm"] > 0 and row["suppression_db"] > 0 for row in core)
+    assert any("decoupling-insufficient" in row["flags"] for row in core)
+    plain = [row for row in data["rows"] if row["source"] == "lcd_pclk"]
+    assert all(row["decoupling_impedance_ohm"] is None for row in plain)

@@ -164,9 +164,31 @@ def main() -> None:
     harmonics_benchmark()
     board_benchmark()
     brute_force_ratio()
+    rail_benchmark()
     print("receiver time against harmonics and tuning points (PK, QP, AV):")
     scaling()
     print(f"python {sys.version.split()[0]}, numpy {np.__version__}")
+
+
+
+def rail_benchmark() -> None:
+    """A rail of 20 parts over 10^4 frequencies: Z_dec and the escaping fraction."""
+    from emispec.decoupling import Capacitor, Plane, Rail, SeriesRL, escape_fraction, lisn_impedance
+
+    values = np.geomspace(1e-9, 22e-6, 17)
+    parts = tuple(("capacitor", Capacitor(c, 0.005 + 0.02 * k / 17, 0.5e-9, 0.4e-9, 1 + k % 3))
+                  for k, c in enumerate(values))
+    parts += (("plane", Plane(80e-4, 0.1e-3, 4.2)), ("regulator", SeriesRL(0.01, 15e-9)),
+              ("capacitor", Capacitor(100e-6, 0.02, 3e-9, 1e-9, 2)))
+    rail = Rail("bench", 1.0, parts, SeriesRL(0.05, 25e-9))
+    f = np.geomspace(100e3, 6e9, 10_000)
+
+    def run():
+        return escape_fraction(rail.decoupling_impedance(f), rail.supply_impedance(f) + lisn_impedance(f))
+
+    best, median = best_of(run, 7)
+    print(f"rail of {len(parts)} parts over {f.size} frequencies (Z_dec and escape): best {best * 1e3:.1f} ms, "
+          f"median {median * 1e3:.1f} ms")
 
 
 if __name__ == "__main__":
