@@ -99,3 +99,19 @@ def test_real_subprocess_bad_input_exits_2(tmp_path):
                           check=False)
     assert done.returncode == 2
     assert done.stderr.count("\n") == 1 and "clock[c].frequency" in done.stderr
+
+
+def test_rails_command_lists_parts_and_draws_the_plot(runner, tmp_path):
+    result = runner.invoke(app, ["rails", str(DEMO), "--out", str(tmp_path)])
+    assert result.exit_code == 0, result.output
+    text = " ".join(result.stdout.split())
+    assert "rail io_3v3" in text and "anti-resonance" in text and "14.53 MHz" in text  # 100 nF with 1.2 nH
+    assert "escape more than the guard band allows" in text
+    assert (tmp_path / "rail-io_3v3.png").read_bytes()[:4] == b"\x89PNG"
+
+
+def test_rails_command_without_rails_exits_2(runner, write_board):
+    from conftest import BASE_BOARD
+
+    result = runner.invoke(app, ["rails", str(write_board(BASE_BOARD))])
+    assert result.exit_code == 2 and "no [[rail]]" in result.stderr
