@@ -29,7 +29,7 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-__all__ = ["BoardError", "Clock", "Current", "Board", "load_board", "board_from_mapping"]
+__all__ = ["BoardError", "Clock", "Current", "Board", "load_board", "read_board_data", "board_from_mapping"]
 
 TOP_KEYS = ("title", "guard_band", "limit", "max_frequency", "clock", "path", "rail", "current")
 CLOCK_KEYS = (
@@ -507,14 +507,8 @@ def board_from_mapping(data: dict, file: str = "<board>", base_dir: FilePath | N
     )
 
 
-def load_board(path: str | FilePath) -> Board:
-    """Read and validate a board file.
-
-    Raises
-    ------
-    BoardError
-        Anything wrong with the file, one line naming the file and key.
-    """
+def read_board_data(path: str | FilePath) -> tuple[dict, str, FilePath, str]:
+    """The parsed board file before validation: (data, file name, its folder, sha256 of its bytes)."""
     path = FilePath(path)
     file = str(path)
     try:
@@ -526,7 +520,19 @@ def load_board(path: str | FilePath) -> Board:
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
         raise BoardError(file, "toml", f"not valid TOML: {err}") from None
     _refuse_non_finite(file, data, "")
-    return board_from_mapping(data, file, path.parent, hashlib.sha256(raw).hexdigest())
+    return data, file, path.parent, hashlib.sha256(raw).hexdigest()
+
+
+def load_board(path: str | FilePath) -> Board:
+    """Read and validate a board file.
+
+    Raises
+    ------
+    BoardError
+        Anything wrong with the file, one line naming the file and key.
+    """
+    data, file, base_dir, sha256 = read_board_data(path)
+    return board_from_mapping(data, file, base_dir, sha256)
 
 
 def _refuse_non_finite(file: str, node: object, key: str) -> None:

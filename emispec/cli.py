@@ -11,10 +11,11 @@ import numpy as np
 import typer
 from rich import box
 from rich.console import Console
+from rich.markup import escape as esc
 from rich.table import Table
 
 from . import __version__
-from .board import BoardError, load_board
+from .board import BoardError, load_board, read_board_data
 from .limits import LimitError, bundled_limits, load_limit
 from .margin import estimate as run_estimate
 from .receiver import band_names
@@ -110,7 +111,8 @@ def _print_table(result, count: int) -> None:
     rows, board = result.rows, result.board
     shown = len(rows) if count == 0 else min(count, len(rows))
     unit = board.limit.unit
-    table = Table(title=f"{board.title}\nworst {shown} of {len(rows)} harmonics against {board.limit.name} ({unit})",
+    table = Table(title=f"{esc(board.title)}\nworst {shown} of {len(rows)} harmonics against "
+                  f"{esc(board.limit.name)} ({unit})",
                   title_style="bold", caption="reading, limit, margin: the detector with the least margin. SSC dB: what the spread "
                   "buys there. flags: OVER the limit, inside the guard band, near field, null (spectral "
                   "null), +name (another source within one RBW), decap (decoupling lets too much escape), >Zt "
@@ -128,14 +130,14 @@ def _print_table(result, count: int) -> None:
         margin = rows.worst_margin_db[i]
         ssc = _fmt(rows.spread_reduction_db[det][i]) if det and rows.spread[i] else "-"
         table.add_row(
-            str(rows.source[i]), str(rows.harmonic[i]), f"{rows.frequency_hz[i] / 1e6:.6g}", str(bands[i]),
+            esc(str(rows.source[i])), str(rows.harmonic[i]), f"{rows.frequency_hz[i] / 1e6:.6g}", str(bands[i]),
             det or "-", _fmt(reading), _fmt(limit), f"[{_margin_style(margin, board.guard_band_db)}]{_fmt(margin)}[/]",
             ssc,
-            " ".join(_short_flag(flag) for flag in rows.flag_list(i)),
+            esc(" ".join(_short_flag(flag) for flag in rows.flag_list(i))),
         )
     out.print(table)
     verdict = result.verdict()
-    out.print(f"[{_verdict_style(verdict)}]{verdict}[/]")
+    out.print(f"[{_verdict_style(verdict)}]{esc(verdict)}[/]")
     out.print(f"[dim]{CAUTION}[/]")
 
 
@@ -145,14 +147,15 @@ def limits(name: Optional[str] = typer.Argument(None, help="Show this limit's po
     """List the bundled limit lines, or show one limit's points."""
     if name is not None:
         limit = load_limit(name)
-        out.print(f"[bold]{limit.title}[/] ({limit.name})\nsource: {limit.source}\n"
+        out.print(f"[bold]{esc(limit.title)}[/] ({esc(limit.name)})\nsource: {esc(limit.source)}\n"
                   f"{limit.measurement}" + (f" at {limit.distance_m:g} m" if limit.distance_m else "")
                   + f", {limit.unit}", markup=True)
         for det, line in limit.lines.items():
             points = ", ".join(f"{f / 1e6:g} MHz {y:g}" for f, y in zip(line.frequency_hz, line.level_db))
             out.print(f"  {det}: {points}", markup=False)
         return
-    table = Table(title="Bundled limits", title_style="bold", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, padding=(0, 1), collapse_padding=True)
+    table = Table(title="Bundled limits", title_style="bold", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False,
+                  padding=(0, 1), collapse_padding=True)
     table.add_column("name", no_wrap=True, min_width=31)
     for col in ("measured", "unit", "detectors", "span MHz"):
         table.add_column(col, no_wrap=True)
@@ -162,7 +165,7 @@ def limits(name: Optional[str] = typer.Argument(None, help="Show this limit's po
         lo, hi = limit.span_hz
         measured = limit.measurement + (f" {limit.distance_m:g} m" if limit.distance_m else "")
         table.add_row(key, measured, limit.unit, " ".join(limit.detectors), f"{lo / 1e6:g}-{hi / 1e6:g}")
-        sources.append(f"[bold]{key}[/]: {limit.source}")
+        sources.append(f"[bold]{esc(key)}[/]: {esc(limit.source)}")
     out.print(table)
     out.print("Sources:\n" + "\n".join(sources))
     out.print(f"[dim]{CAUTION}[/]")
@@ -201,11 +204,11 @@ def rails(
     for name, rail in result.board.rails.items():
         summary = rail_summary(rail, result.span_hz)
         target = f", target {format_quantity(rail.target_ohm, 'ohm')}" if rail.target_ohm else ""
-        table = Table(title=f"rail {name} ({rail.voltage_v:g} V{target})", title_style="bold")
+        table = Table(title=f"rail {esc(name)} ({rail.voltage_v:g} V{target})", title_style="bold")
         for col in ("part", "value", "detail", "count", "self-resonance"):
             table.add_column(col)
         for part in summary["parts"]:
-            table.add_row(*_part_cells(part))
+            table.add_row(*map(esc, _part_cells(part)))
         out.print(table)
         for peak in summary["anti_resonances"]:
             lo, hi = peak["band_hz"]
@@ -228,6 +231,184 @@ def rails(
 
         _write(draw, str(target_path))
         out.print(f"  plot: {target_path}", markup=False)
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+def _parse_sets(sets: list[str]) -> dict[str, list]:
+    """``KEY=V1,V2`` options into key -> values; plain numbers become numbers, the rest stays text."""
+    changes = {}
+    for item in sets:
+        key, sep, values = item.partition("=")
+        if not sep or not key.strip() or not values.strip():
+            raise OutputError(f"--set {item!r}: write KEY=VALUE1,VALUE2, e.g. 'clock[cpu].rise_time=0.5 ns,1 ns'")
+        changes[key.strip()] = [_plain(v.strip()) for v in values.split(",")]
+    return changes
+
+
+def _plain(text: str):
+    for kind in (int, float):
+        try:
+            return kind(text)
+        except ValueError:
+            pass
+    return text
+
+
+def _progress(total: int, what: str):
+    from rich.progress import Progress
+
+    progress = Progress(console=err, transient=True)
+    task = progress.add_task(what, total=total)
+    return progress, (lambda: progress.advance(task))
+
+
+def _run_variants(board: Path, sets: list[str], zipped: bool):
+    from .explore import vary
+
+    data, file, base_dir, _ = read_board_data(board)
+    changes = _parse_sets(sets)
+    lengths = [len(v) for v in changes.values()]
+    total = lengths[0] if zipped else int(np.prod(lengths))
+    progress, advance = _progress(total, f"{total} variants")
+    with progress:
+        return vary(data, file, base_dir, changes, "zip" if zipped else "cross", progress=advance)
+
+
+@app.command("vary")
+@_guarded
+def vary_command(
+    board: Path = typer.Argument(..., help="Board file (TOML)."),
+    sets: list[str] = typer.Option(..., "--set", help="KEY=V1,V2,... e.g. 'clock[cpu].rise_time=0.5 ns,1 ns'; "
+                                   "repeat for more keys."),
+    zipped: bool = typer.Option(False, "--zip", help="Take the value lists side by side instead of crossing them."),
+    out_dir: Optional[Path] = typer.Option(None, "--out", help="Write variants.csv and variants.png here."),
+) -> None:
+    """Compare design choices: the worst margin and counts of each variant, per detector."""
+    from .plot import png_bytes, variants_figure
+    from .report import variants_csv_text, variants_rows
+
+    variants = _run_variants(board, sets, zipped)
+    rows = variants_rows(variants)
+    dets = variants[0].estimate.board.limit.detectors
+    table = Table(title=f"{len(rows)} variants of {esc(variants[0].estimate.board.title)}", title_style="bold")
+    for col in ("variant", "worst dB", "over", "guard", *(f"{d} worst" for d in dets)):
+        table.add_column(col, justify="left" if col == "variant" else "right")
+    guard = variants[0].estimate.board.guard_band_db
+    for row in rows:
+        worst = row["worst_margin_db"]
+        style = _margin_style(float("nan") if worst is None else worst, guard)
+        table.add_row(esc(row["variant"]), f"[{style}]{_fmt(float('nan') if worst is None else worst)}[/]",
+                      str(row["over_limit"]), str(row["within_guard_band"]),
+                      *(_fmt(float("nan") if row[f"worst_{d}"] is None else row[f"worst_{d}"]) for d in dets))
+    out.print(table)
+    if out_dir is not None:
+        def write():
+            Path(out_dir).mkdir(parents=True, exist_ok=True)
+            atomic_write(Path(out_dir) / "variants.csv", variants_csv_text(variants))
+            atomic_write(Path(out_dir) / "variants.png", png_bytes(variants_figure(variants)))
+
+        _write(write, str(out_dir))
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+@app.command("solve")
+@_guarded
+def solve_command(
+    board: Path = typer.Argument(..., help="Board file (TOML)."),
+    key: str = typer.Option(..., "--value", help="Key path to solve for, e.g. 'clock[cpu].rise_time'."),
+    span: str = typer.Option(..., "--range", help="Search range 'LOW..HIGH' with units, e.g. '0.2 ns..5 ns'."),
+    points: int = typer.Option(17, "--points", min=5, max=200, help="Scan points before refining."),
+    whole_board: bool = typer.Option(False, "--whole-board",
+                                     help="Judge every source's harmonics, not only the source the key belongs to."),
+) -> None:
+    """Find the value at which the board just keeps the guard band (fastest edge, least spread, largest loop)."""
+    from .explore import scope_of, solve
+
+    low, sep, high = span.partition("..")
+    if not sep:
+        raise OutputError(f"--range {span!r}: write LOW..HIGH, e.g. '0.2 ns..5 ns'")
+    data, file, base_dir, _ = read_board_data(board)
+    scope = None if whole_board else scope_of(key)
+    progress, advance = _progress(points + 40, f"solving {key}")
+    try:
+        with progress:
+            solution = solve(data, file, base_dir, key, low, high, points, progress=advance, scope=scope)
+    except ValueError as problem:
+        if isinstance(problem, BoardError):
+            raise
+        raise OutputError(f"--range {span!r}: {problem}") from None
+    judged = f"the harmonics of {solution.scope}" if solution.scope else "every harmonic on the board"
+    out.print(f"[bold]{esc(key)}[/] = [bold]{esc(solution.text)}[/] keeps the guard band on {esc(judged)} "
+              f"({solution.direction}).")
+    if solution.binding:
+        out.print(f"  binding: {solution.binding}, margin {solution.margin_db:+.2f} dB", markup=False)
+    out.print(f"  {'monotone' if solution.monotone else 'NOT monotone'} over the scan of {len(solution.scanned)} "
+              f"points; crossings at {', '.join(f'{c:.4g}' for c in solution.crossings) or 'none'}", markup=False)
+    if solution.note:
+        out.print(f"  {solution.note}", markup=False)
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+@app.command("plan")
+@_guarded
+def plan_command(
+    board: Path = typer.Argument(..., help="Board file (TOML)."),
+    everything: bool = typer.Option(False, "--all", help="Every harmonic, not only those over or near the limit."),
+    out_dir: Optional[Path] = typer.Option(None, "--out", help="Write testplan.csv and testplan.md here."),
+) -> None:
+    """The pre-compliance test plan: what to measure first, with band, RBW, detector and expected reading."""
+    from .explore import plan_rows
+    from .report import plan_csv_text, plan_markdown_text
+
+    result = run_estimate(load_board(board))
+    plan = plan_rows(result, everything)
+    unit = result.board.limit.unit
+    table = Table(title=f"Test plan: {esc(result.board.title)} ({len(plan)} frequencies, worst first)",
+                  title_style="bold", caption="notes below the table", caption_style="dim")
+    for col in ("#", "source", "n", "frequency MHz", "band", "RBW", "det", f"expect {unit}", "margin"):
+        table.add_column(col, justify="left" if col in ("source", "band", "det") else "right")
+    for row in plan:
+        freq = (f"{row['band_lo_hz'] / 1e6:.6g}-{row['band_hi_hz'] / 1e6:.6g}"
+                if row["band_hi_hz"] > row["band_lo_hz"] else f"{row['frequency_hz'] / 1e6:.6g}")
+        table.add_row(str(row["priority"]), esc(row["source"]), str(row["harmonic"]), freq, row["cispr_band"],
+                      format_quantity(row["rbw_hz"], "Hz"), row["detectors"], f"{row['expected']:.1f}",
+                      f"{row['margin_db']:.1f}")
+    out.print(table)
+    for row in plan:
+        if row["note"]:
+            out.print(f"  #{row['priority']}: {row['note']}", markup=False)
+    if out_dir is not None:
+        def write():
+            Path(out_dir).mkdir(parents=True, exist_ok=True)
+            atomic_write(Path(out_dir) / "testplan.csv", plan_csv_text(result, plan))
+            atomic_write(Path(out_dir) / "testplan.md", plan_markdown_text(result, plan))
+
+        _write(write, str(out_dir))
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+@app.command("report")
+@_guarded
+def report_command(
+    board: Path = typer.Argument(..., help="Board file (TOML)."),
+    out_path: Path = typer.Option(..., "--out", help="The HTML file to write."),
+    sets: Optional[list[str]] = typer.Option(None, "--set", help="Variants to include, as for `emispec vary`."),
+    zipped: bool = typer.Option(False, "--zip", help="Take the --set value lists side by side."),
+    everything: bool = typer.Option(False, "--all", help="Test plan with every harmonic."),
+) -> None:
+    """One self-contained HTML report: verdict, margins, plots, variants and test plan."""
+    from .explore import plan_rows
+    from .report import html_text
+
+    result = run_estimate(load_board(board))
+    variants = _run_variants(board, sets, zipped) if sets else None
+    text = html_text(result, plan_rows(result, everything), variants)
+    def write():
+        out_path.parent.mkdir(parents=True, exist_ok=True)
+        atomic_write(out_path, text)
+
+    _write(write, str(out_path))
+    out.print(f"report: {out_path}", markup=False)
     out.print(f"[dim]{CAUTION}[/]")
 
 

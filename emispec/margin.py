@@ -252,6 +252,7 @@ class _SourcePart:
     tuning: np.ndarray
     owner: np.ndarray
     unspread: SourceLines | None
+    rbw: np.ndarray
 
 
 def _phasors(source: Clock | Current, n: np.ndarray) -> np.ndarray:
@@ -275,6 +276,7 @@ def _source_part(board: Board, source: Clock | Current, lo: float, hi: float) ->
         lines, unspread = unmodulated, None
         band_lo = band_hi = f
         tuning, owner = f.copy(), np.arange(n.size)
+        rbw = resolution_bandwidth_hz(f)
     else:
         line_hz, amp, _ = harmonic_lines(spread, f0, n, phasor)
         order = np.argsort(line_hz, kind="stable")
@@ -284,11 +286,11 @@ def _source_part(board: Board, source: Clock | Current, lo: float, hi: float) ->
         unspread = unmodulated
         band_lo, band_hi = occupied_band_hz(spread, f0, n)
         rbw = resolution_bandwidth_hz(0.5 * (band_lo + band_hi))
-        tuning, owner = _tuning_grid(band_lo - rbw / 2, band_hi + rbw / 2, rbw / 4)
+        tuning, owner = _tuning_grid(band_lo - rbw / 2, band_hi + rbw / 2, rbw / 2)
     magnitude = np.abs(phasor)
     current = magnitude * _current_per_unit(source, f)
     voltage = magnitude if isinstance(source, Clock) else np.full(f.shape, np.nan)
-    return _SourcePart(lines, source, n, f, band_lo, band_hi, voltage, current, gains, tuning, owner, unspread)
+    return _SourcePart(lines, source, n, f, band_lo, band_hi, voltage, current, gains, tuning, owner, unspread, rbw)
 
 
 def _decoupling_columns(board: Board, part: _SourcePart, own: dict, share: dict, limit: dict, span_hz):
@@ -353,9 +355,47 @@ def _combine(per_source: list[dict[str, np.ndarray]], references: list[str | Non
 
 
 def _row_max(values: np.ndarray, owner: np.ndarray, rows: int) -> np.ndarray:
-    """Maximum of the tuning-point values of each row (owners are contiguous and ascending)."""
-    starts = np.searchsorted(owner, np.arange(rows))
-    return np.maximum.reduceat(values, starts) if values.size else np.zeros(rows)
+    """Maximum of each row's tuning-point values, ignoring NaN (NaN where a row has no value)."""
+    out = np.full(rows, -np.inf)
+    np.fmax.at(out, owner, values)
+    return np.where(np.isneginf(out), np.nan, out)
+
+
+def _read_at(parts: list[_SourcePart], tuning: np.ndarray, detectors):
+    """Each source's readings at the tuning frequencies, and all sources combined."""
+    per_source = [sweep(p.lines.line_hz, p.lines.line_amplitude, p.lines.grid_hz, tuning, detectors)
+                  for p in parts]
+    return per_source, _combine(per_source, [p.source.reference for p in parts], detectors)
+
+
+def _refinement(part: _SourcePart, combined_here: dict[str, np.ndarray]):
+    """Extra tuning points a quarter RBW either side of each local maximum within 1.5 dB of its row's best.
+
+    A reading varies smoothly over a tuning step of half the RBW, but its maximum
+    can fall between two steps (by up to about 1.5 dB at the edges of a spread
+    band); the quarter-RBW points around every candidate peak find it.
+    """
+    if part.source.spread is None or part.tuning.size == 0:
+        return np.array([]), np.array([], dtype=np.int64)
+    owner = part.owner
+    same_prev = np.concatenate([[False], owner[1:] == owner[:-1]])
+    same_next = np.concatenate([owner[:-1] == owner[1:], [False]])
+    keep = np.zeros(owner.size, bool)
+    for value in combined_here.values():  # each detector may peak elsewhere
+        value = np.nan_to_num(value)
+        prev = np.where(same_prev, np.roll(value, 1), -np.inf)
+        nxt = np.where(same_next, np.roll(value, -1), -np.inf)
+        best = np.nan_to_num(_row_max(value, owner, part.n.size))
+        keep |= (value >= prev) & (value >= nxt) & (value > 0) & (value >= best[owner] * 10 ** (-1.5 / 20))
+    rows = owner[keep]
+    step = part.rbw[rows] / 4
+    points = np.concatenate([part.tuning[keep] - step, part.tuning[keep] + step])
+    owners = np.concatenate([rows, rows])
+    # stay inside each row's own tuning range
+    lo = (part.band_lo - part.rbw / 2)[owners]
+    hi = (part.band_hi + part.rbw / 2)[owners]
+    inside = (points >= lo) & (points <= hi)
+    return points[inside], owners[inside]
 
 
 def _overlap_flags(parts: list[_SourcePart]) -> list[dict[str, np.ndarray]]:
@@ -394,29 +434,37 @@ def estimate(board: Board) -> Estimate:
     lo, hi = analysis_span_hz(board)
     detectors = board.limit.detectors
     parts = [_source_part(board, source, lo, hi) for source in board.sources]
-    tuning = np.concatenate([p.tuning for p in parts]) if parts else np.array([])
-    segments = np.cumsum([0] + [p.tuning.size for p in parts])
-    per_source = [sweep(p.lines.line_hz, p.lines.line_amplitude, p.lines.grid_hz, tuning, detectors)
-                  for p in parts]
-    combined = _combine(per_source, [p.source.reference for p in parts], detectors)
-    limit_at_tuning = board.limit.levels(tuning) if tuning.size else {d: np.array([]) for d in detectors}
+
+    def cat(arrays):
+        return np.concatenate(arrays) if arrays else np.array([])
+
+    coarse = cat([p.tuning for p in parts])
+    coarse_seg = np.cumsum([0] + [p.tuning.size for p in parts])
+    per_source, combined = _read_at(parts, coarse, detectors)
+    refined = [_refinement(p, {d: combined[d][coarse_seg[k]:coarse_seg[k + 1]] for d in detectors})
+               for k, p in enumerate(parts)]
+    fine = cat([r[0] for r in refined])
+    fine_seg = np.cumsum([0] + [r[0].size for r in refined])
+    per_source_fine, combined_fine = _read_at(parts, fine, detectors)
+    limits_coarse = board.limit.levels(coarse) if coarse.size else {d: np.array([]) for d in detectors}
+    limits_fine = board.limit.levels(fine) if fine.size else {d: np.array([]) for d in detectors}
     overlaps = _overlap_flags(parts)
 
     columns = []
     for k, part in enumerate(parts):
-        seg = slice(segments[k], segments[k + 1])
+        a, b = slice(coarse_seg[k], coarse_seg[k + 1]), slice(fine_seg[k], fine_seg[k + 1])
         rows = part.n.size
+        owner = np.concatenate([part.owner, refined[k][1]])
 
-        def per_row(values, seg=seg, part=part, rows=rows):
-            return _row_max(values[seg], part.owner, rows)
+        def per_row(coarse_values, fine_values, a=a, b=b, owner=owner, rows=rows):
+            return _row_max(np.concatenate([coarse_values[a], fine_values[b]]), owner, rows)
 
-        own = {d: per_row(per_source[k][d]) for d in detectors}
+        own = {d: per_row(per_source[k][d], per_source_fine[k][d]) for d in detectors}
         # a harmonic on a spectral null has no reading of its own, whatever else sits at its frequency
         live = np.abs(_phasors(part.source, part.n)) > 0
-        reading = {d: np.where(live, per_row(combined[d]), 0.0) for d in detectors}
-        limit = {d: -per_row(-np.where(np.isnan(limit_at_tuning[d]), -np.inf, limit_at_tuning[d]))
-                 for d in detectors}
-        limit = {d: np.where(np.isinf(v), np.nan, v) for d, v in limit.items()}
+        reading = {d: np.where(live, per_row(combined[d], combined_fine[d]), 0.0) for d in detectors}
+        # the lowest limit over the row's tuning points (NaN where no line of that detector applies)
+        limit = {d: -per_row(-limits_coarse[d], -limits_fine[d]) for d in detectors}
         total = _total_gain(part.gains)
         with np.errstate(invalid="ignore", divide="ignore"):
             share = {p: g / total for p, g in part.gains.items()}

@@ -12,9 +12,10 @@ matplotlib.use("Agg")  # files only; never needs a display
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
+from .board import Clock  # noqa: E402
 from .margin import Estimate, clock_envelope_dbu  # noqa: E402
 
-__all__ = ["spectrum_figure", "swept_figure", "rail_figure", "png_bytes"]
+__all__ = ["spectrum_figure", "swept_figure", "rail_figure", "variants_figure", "png_bytes", "svg_text"]
 
 DETECTOR_STYLE = {"QP": "-", "PK": "-.", "AV": "--", "RMS-AV": ":"}
 
@@ -40,13 +41,14 @@ def spectrum_figure(est: Estimate):
     fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
     reading = np.fmax.reduce([rows.readings[d] for d in limit.detectors]) if len(rows) else np.array([])
     colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
-    for k, clock in enumerate(board.clocks):
+    for k, source in enumerate(board.sources):
         color = colors[k % len(colors)]
-        mine = rows.source == clock.name
+        mine = rows.source == source.name
         ax.vlines(rows.frequency_hz[mine], -200, reading[mine], color=color, lw=0.8, alpha=0.6)
         ax.plot(rows.frequency_hz[mine], reading[mine], "o", ms=3, color=color,
-                label=f"{clock.name} ({clock.wave.frequency_hz / 1e6:g} MHz)")
-        ax.plot(grid, clock_envelope_dbu(board, clock, grid), "--", lw=0.8, color=color, alpha=0.8)
+                label=f"{source.name} ({source.frequency_hz / 1e6:g} MHz)")
+        if isinstance(source, Clock):  # the trapezoid's envelope through the paths (unspread)
+            ax.plot(grid, clock_envelope_dbu(board, source, grid), "--", lw=0.8, color=color, alpha=0.8)
     limit_max = _limit_lines(ax, est, grid)
     over = rows.flags["over-limit"]
     if over.any():
@@ -154,3 +156,41 @@ def rail_figure(est: Estimate, rail_name: str):
     fig.legend(fontsize=8, loc="outside right upper")
     fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
     return fig
+
+
+def variants_figure(variants):
+    """Each variant's harmonic readings (the highest detector) against the limit, overlaid.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    est0 = variants[0].estimate
+    lo, hi = est0.span_hz
+    fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
+    markers = "os^vD<>ph*"
+    top = -np.inf
+    for k, variant in enumerate(variants):
+        rows = variant.estimate.rows
+        reading = np.fmax.reduce([rows.readings[d] for d in variant.estimate.board.limit.detectors])
+        seen = np.isfinite(reading)
+        ax.plot(rows.frequency_hz[seen], reading[seen], markers[k % len(markers)], ms=4, mfc="none",
+                label=f"{variant.label}: worst {variant.worst_margin_db():+.1f} dB")
+        if seen.any():
+            top = max(top, reading[seen].max())
+    limit_max = _limit_lines(ax, est0, np.geomspace(lo, hi, 2000))
+    top = max(top, limit_max) + 10
+    ax.set_ylim(top - 80, top)
+    _finish(fig, ax, est0, "variants")
+    ax.set_title(f"{est0.board.title}: {len(variants)} variants against {est0.board.limit.name}", fontsize=10)
+    return fig
+
+
+def svg_text(figure) -> str:
+    """The figure as an inline <svg> element (text drawn as paths); the figure is closed."""
+    buffer = io.StringIO()
+    with matplotlib.rc_context({"svg.fonttype": "path", "svg.hashsalt": "emispec"}):
+        figure.savefig(buffer, format="svg")
+    plt.close(figure)
+    text = buffer.getvalue()
+    return text[text.index("<svg"):]

@@ -52,6 +52,11 @@ __all__ = [
 ]
 
 DETECTORS = ("PK", "QP", "AV", "RMS-AV")
+#: Envelope samples per line of the occupied span: the QP balance needs 4 (0.05 dB
+#: against stepping the detector on 1024 samples); PK (refined between samples) and
+#: the AV mean agree with the brute-force receiver within 0.005 dB at 2.
+OVERSAMPLING = {"QP": 4, "other": 2}
+
 #: Lines further than this many bandwidths from the tuning frequency are out of
 #: the filter's reach (|H| < 5e-6, -106 dB).
 REACH_RBW = 2.1
@@ -301,10 +306,13 @@ def sweep(line_hz, line_amplitude, grid_hz: float, tuning_hz, detectors, max_cel
         lo = np.searchsorted(line_hz, tuning[rows] - reach, side="left")
         hi = np.searchsorted(line_hz, tuning[rows] + reach, side="right")
         count = hi - lo
-        for size in np.unique(2 ** np.ceil(np.log2(np.maximum(count, 1))).astype(int)):
-            pick = (count > 0) & (np.maximum(count, 1) <= size) & (np.maximum(count, 1) > size // 2)
-            if not pick.any():
-                continue
+        # group tuning points by how many lines they reach (steps of 1/8 of a power of two, so
+        # little padding is computed), one vectorised pass per group
+        need = np.maximum(count, 1)
+        step = np.maximum(2 ** np.floor(np.log2(need)) / 8, 1)
+        sizes = (np.ceil(need / step) * step).astype(int)
+        for size in np.unique(sizes[count > 0]):
+            pick = (count > 0) & (sizes == size)
             for chunk in _chunks(np.flatnonzero(pick), max_cells // (8 * size)):
                 values = _sweep_rows(line_hz, amp, grid_hz, tuning[rows[chunk]], lo[chunk], count[chunk],
                                      size, band, detectors)
@@ -334,7 +342,8 @@ def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, band, detectors
     bins = np.rint((freq - freq[:, :1]) / grid_hz).astype(np.int64)
     span = int(bins.max()) + 1
     # 4x oversampled envelope; the peak is refined between samples (_peak_refined)
-    n_fft = int(2 ** np.ceil(np.log2(max(32, 4 * span))))
+    qp = "QP" in detectors and band.qp_charge_s is not None
+    n_fft = scipy.fft.next_fast_len(max(32, OVERSAMPLING["QP" if qp else "other"] * span))
     # padding cells go to an extra column that is dropped before the transform
     bins = np.where(present, bins, n_fft)
     rows = np.arange(tuning.size)[:, None]

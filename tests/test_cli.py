@@ -115,3 +115,31 @@ def test_rails_command_without_rails_exits_2(runner, write_board):
 
     result = runner.invoke(app, ["rails", str(write_board(BASE_BOARD))])
     assert result.exit_code == 2 and "no [[rail]]" in result.stderr
+
+
+def test_vary_solve_and_plan_commands(runner, tmp_path):
+    result = runner.invoke(app, ["vary", str(DEMO), "--set", "clock[sdram_clk].rise_time=0.3 ns,0.45 ns,0.7 ns,1 ns",
+                                 "--out", str(tmp_path)])
+    assert result.exit_code == 0, result.output
+    assert "4 variants" in result.stdout and (tmp_path / "variants.csv").exists()
+    assert (tmp_path / "variants.png").read_bytes()[:4] == b"\x89PNG"
+    result = runner.invoke(app, ["solve", str(DEMO), "--value", "clock[sdram_clk].rise_time", "--range", "0.2 ns..4 ns"])
+    assert result.exit_code == 0, result.output
+    text = " ".join(result.stdout.split())
+    assert "clock[sdram_clk].rise_time =" in text and "binding: sdram_clk" in text
+    result = runner.invoke(app, ["plan", str(DEMO), "--out", str(tmp_path)])
+    assert result.exit_code == 0, result.output
+    assert (tmp_path / "testplan.csv").read_text().count("\n") > 3 and (tmp_path / "testplan.md").exists()
+
+
+@pytest.mark.parametrize("args", [
+    ["vary", str(DEMO), "--set", "clock[nope].rise_time=1 ns"],
+    ["vary", str(DEMO), "--set", "clock[sdram_clk].rise_time=1 MHz"],
+    ["vary", str(DEMO), "--set", "no-equals-sign"],
+    ["solve", str(DEMO), "--value", "clock[sdram_clk].rise_time", "--range", "1 ns..5 MHz"],
+    ["solve", str(DEMO), "--value", "clock[sdram_clk].rise_time", "--range", "1 ns"],
+])
+def test_exploration_input_errors_exit_2(runner, args):
+    result = runner.invoke(app, args)
+    assert result.exit_code == 2, result.output
+    assert "\n" not in result.stderr.strip() and "Traceback" not in result.stderr
