@@ -107,6 +107,16 @@ def _write(action, where: str) -> None:
         raise OutputError(f"{where}: cannot write output ({problem.strerror or problem}); nothing was written") from None
 
 
+def _write_into(folder: Path, files: dict) -> None:
+    """Render each file (name -> function giving text or bytes) and write it atomically into ``folder``."""
+    def write():
+        Path(folder).mkdir(parents=True, exist_ok=True)
+        for name, render in files.items():
+            atomic_write(Path(folder) / name, render())
+
+    _write(write, str(folder))
+
+
 def _print_table(result, count: int) -> None:
     rows, board = result.rows, result.board
     shown = len(rows) if count == 0 else min(count, len(rows))
@@ -223,14 +233,9 @@ def rails(
             out.print(f"    {rows.source[i]} n={rows.harmonic[i]} {format_quantity(rows.frequency_hz[i], 'Hz')}: "
                       f"|Z_dec| {format_quantity(rows.decoupling_impedance_ohm[i], 'ohm')}, needs <= "
                       f"{format_quantity(rows.required_impedance_ohm[i], 'ohm')}", markup=False)
-        target_path = Path(out_dir) / f"rail-{file_part(name)}.png"
-
-        def draw(path=target_path, name=name):
-            Path(out_dir).mkdir(parents=True, exist_ok=True)
-            atomic_write(path, png_bytes(rail_figure(result, name)))
-
-        _write(draw, str(target_path))
-        out.print(f"  plot: {target_path}", markup=False)
+        plot_name = f"rail-{file_part(name)}.png"
+        _write_into(out_dir, {plot_name: lambda name=name: png_bytes(rail_figure(result, name))})
+        out.print(f"  plot: {Path(out_dir) / plot_name}", markup=False)
     out.print(f"[dim]{CAUTION}[/]")
 
 
@@ -302,12 +307,8 @@ def vary_command(
                       *(_fmt(float("nan") if row[f"worst_{d}"] is None else row[f"worst_{d}"]) for d in dets))
     out.print(table)
     if out_dir is not None:
-        def write():
-            Path(out_dir).mkdir(parents=True, exist_ok=True)
-            atomic_write(Path(out_dir) / "variants.csv", variants_csv_text(variants))
-            atomic_write(Path(out_dir) / "variants.png", png_bytes(variants_figure(variants)))
-
-        _write(write, str(out_dir))
+        _write_into(out_dir, {"variants.csv": lambda: variants_csv_text(variants),
+                              "variants.png": lambda: png_bytes(variants_figure(variants))})
     out.print(f"[dim]{CAUTION}[/]")
 
 
@@ -378,12 +379,8 @@ def plan_command(
         if row["note"]:
             out.print(f"  #{row['priority']}: {row['note']}", markup=False)
     if out_dir is not None:
-        def write():
-            Path(out_dir).mkdir(parents=True, exist_ok=True)
-            atomic_write(Path(out_dir) / "testplan.csv", plan_csv_text(result, plan))
-            atomic_write(Path(out_dir) / "testplan.md", plan_markdown_text(result, plan))
-
-        _write(write, str(out_dir))
+        _write_into(out_dir, {"testplan.csv": lambda: plan_csv_text(result, plan),
+                              "testplan.md": lambda: plan_markdown_text(result, plan)})
     out.print(f"[dim]{CAUTION}[/]")
 
 
@@ -403,11 +400,7 @@ def report_command(
     result = run_estimate(load_board(board))
     variants = _run_variants(board, sets, zipped) if sets else None
     text = html_text(result, plan_rows(result, everything), variants)
-    def write():
-        out_path.parent.mkdir(parents=True, exist_ok=True)
-        atomic_write(out_path, text)
-
-    _write(write, str(out_path))
+    _write_into(out_path.parent, {out_path.name: lambda: text})
     out.print(f"report: {out_path}", markup=False)
     out.print(f"[dim]{CAUTION}[/]")
 

@@ -87,14 +87,20 @@ def harmonics_benchmark() -> None:
           "(goal < 50 ms)")
 
 
-def board_benchmark() -> None:
+def write_board(folder: str) -> Path:
+    """The 8-clock benchmark board (clocks 8 MHz to 1.2 GHz, three of them spread) in ``folder``."""
     freqs = [8, 12, 24, 25, 33.3, 48, 100, 1200]
     edges = [3.0, 2.5, 2.0, 1.5, 1.2, 1.0, 0.5, 0.06]
     clocks = "".join(CLOCK.format(k=k, f=f, tr=tr, tf=1.2 * tr, d=45 + k, spread=SPREADS.get(k, ""))
                      for k, (f, tr) in enumerate(zip(freqs, edges)))
+    path = Path(folder) / "bench.toml"
+    path.write_text(BOARD.format(clocks=clocks), encoding="utf-8")
+    return path
+
+
+def board_benchmark() -> None:
     with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "bench.toml"
-        path.write_text(BOARD.format(clocks=clocks), encoding="utf-8")
+        path = write_board(tmp)
 
         def run():
             result = estimate(load_board(path))
@@ -192,7 +198,6 @@ def rail_benchmark() -> None:
           f"median {median * 1e3:.1f} ms")
 
 
-
 def variants_benchmark() -> None:
     """100 variants of the 8-clock board (rise time x spread deviation), with the progress bar."""
     from rich.console import Console
@@ -201,14 +206,8 @@ def variants_benchmark() -> None:
     from emispec.board import read_board_data
     from emispec.explore import vary
 
-    freqs = [8, 12, 24, 25, 33.3, 48, 100, 1200]
-    edges = [3.0, 2.5, 2.0, 1.5, 1.2, 1.0, 0.5, 0.06]
-    clocks = "".join(CLOCK.format(k=k, f=f, tr=tr, tf=1.2 * tr, d=45 + k, spread=SPREADS.get(k, ""))
-                     for k, (f, tr) in enumerate(zip(freqs, edges)))
     with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "bench.toml"
-        path.write_text(BOARD.format(clocks=clocks), encoding="utf-8")
-        data, file, base, _ = read_board_data(path)
+        data, file, base, _ = read_board_data(write_board(tmp))
         changes = {"clock[clk6].rise_time": [f"{0.3 + 0.1 * k:.1f} ns" for k in range(10)],
                    "clock[clk2].spread.deviation": [f"{0.1 + 0.1 * k:.1f} %" for k in range(10)]}
         start = time.perf_counter()
