@@ -16,6 +16,7 @@ pulses of height A/tr and -A/tf.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from fractions import Fraction
 
 import numpy as np
 
@@ -147,7 +148,7 @@ def harmonic_amplitudes(wave: Trapezoid, n: np.ndarray) -> np.ndarray:
     sinc_rise = _sinc_of_multiple(n, wave.rise_s * f0)
     equal_edges = wave.rise_s == wave.fall_s
     sinc_fall = sinc_rise if equal_edges else _sinc_of_multiple(n, wave.fall_s * f0)
-    half = np.sin(n * (np.pi * wave.duty))
+    half = _sin_pi_multiple(n, wave.duty)
     half *= half  # sin^2(theta / 2), theta = 2 pi n tau / T
     # |s_r - exp(-j theta) s_f|^2 = (s_r - s_f)^2 + 4 s_r s_f sin^2(theta/2)
     #                             = (s_r + s_f)^2 - 4 s_r s_f cos^2(theta/2);
@@ -197,10 +198,26 @@ def _sinc_of_multiple(n: np.ndarray, c: float) -> np.ndarray:
     """sinc(n c) = sin(pi n c) / (pi n c) for n >= 1, c >= 0."""
     if c == 0:
         return np.ones_like(n)
-    x = n * (np.pi * c)
-    s = np.sin(x)
-    s /= x
+    s = _sin_pi_multiple(n, c)
+    s /= n * (np.pi * c)
     return s
+
+
+def _sin_pi_multiple(n: np.ndarray, c: float) -> np.ndarray:
+    """sin(pi n c) for whole numbers n.
+
+    When c is a fraction p/q with a small denominator (a duty cycle of 45 %,
+    an edge of 1.1 ns at 10 MHz), sin(pi n c) repeats with period 2q in n:
+    one table of 2q sines and a gather replace 10^6 sine evaluations.
+    """
+    fraction = Fraction(c).limit_denominator(4096)
+    p, q = fraction.numerator, fraction.denominator
+    if n.size < 8 * q or abs(c - p / q) > 4 * np.spacing(c):
+        return np.sin(n * (np.pi * c))
+    table = np.sin(np.pi * ((np.arange(2 * q) * p) % (2 * q)) / q)
+    period = 2.0 * q
+    index = n - period * np.floor(n / period)  # n mod 2q, exact for whole numbers below 2^52
+    return table.take(index.astype(np.intp))
 
 
 def corner_frequencies(wave: Trapezoid) -> tuple[float, float]:

@@ -198,3 +198,16 @@ def test_triangle_pulse_too_wide_is_refused():
         triangle_pulse_amplitudes(1.0, 30e-9, 50e6, [1])
     with pytest.raises(WaveformError):
         triangle_pulse_amplitudes(1.0, 12e-9, 50e6, [1], per="edge")
+
+
+def test_many_harmonics_through_the_periodic_sine_table():
+    # Source: independent reference, numpy.fft of the finely sampled trapezoid (2^20 samples); with 4096 harmonics
+    # and rational duty and edges the kernel takes its periodic-table path
+    wave = Trapezoid(10e6, 5.0, 0.45, 2e-9, 3e-9)
+    n = np.arange(1, 4097)
+    reference = fft_amplitudes(sampled_trapezoid(wave, 2**20), 4096)
+    assert np.max(np.abs(harmonic_amplitudes(wave, n) - reference)) < 1e-8 * wave.swing_v
+    # the same harmonics with an irrational duty take the direct path and still match
+    odd = Trapezoid(10e6, 5.0, 1 / np.pi, 2e-9, 3e-9)
+    reference = fft_amplitudes(sampled_trapezoid(odd, 2**20), 4096)
+    assert np.max(np.abs(harmonic_amplitudes(odd, n) - reference)) < 1e-8 * odd.swing_v
