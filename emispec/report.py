@@ -17,7 +17,6 @@ import os
 import tempfile
 from pathlib import Path
 
-import numpy as np
 
 from . import __version__
 from .decoupling import rail_summary

@@ -19,7 +19,7 @@ def demo():
 def test_json_rows_match_the_columns(demo):
     data = result_dict(demo)
     assert len(data["rows"]) == len(demo.rows) == data["summary"]["rows"]
-    for i, row in enumerate(data["rows"][:20]):
+    for row in data["rows"][:20]:
         f0 = {"mcu_clk": 24e6, "mcu_core": 24e6, "sdram_clk": 100e6, "eth_ref": 25e6, "lcd_pclk": 9e6}
         assert row["frequency_hz"] == pytest.approx(row["harmonic"] * f0[row["source"]])
         assert set(row["paths"]) == set(demo.source_paths[row["source"]])
