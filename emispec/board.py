@@ -21,7 +21,7 @@ from .decoupling import (Capacitor, Measured, Plane, Rail, SeriesRL, TouchstoneE
                          read_touchstone, target_impedance)
 from .limits import Limit, LimitError, limit_from_mapping, load_limit
 from .spread import MODES, PROFILES, Spread
-from .units import QuantityError, from_db, parse_quantity
+from .units import DIMENSIONS, QuantityError, from_db, parse_quantity
 from .waveform import EDGE_FRACTION, Trapezoid, WaveformError, full_edge_time
 
 if sys.version_info >= (3, 11):
@@ -196,8 +196,7 @@ class _Reader:
 def _range(low, high, low_open, dimension, high_open=False) -> str:
     if low is None and high is None:
         return ""
-    unit = {"frequency": "Hz", "time": "s", "voltage": "V", "current": "A", "resistance": "ohm",
-            "capacitance": "F", "length": "m", "area": "m2", "decibel": "dB", "ratio": ""}.get(dimension, "")
+    unit = "" if dimension == "ratio" else DIMENSIONS[dimension][1]
     lower = "" if low is None else f"{'>' if low_open else '>='} {low:g} {unit}".rstrip()
     upper = "" if high is None else f"{'<' if high_open else '<='} {high:g} {unit}".rstrip()
     return "; allowed: " + " and ".join(part for part in (lower, upper) if part)

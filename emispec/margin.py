@@ -248,6 +248,7 @@ class _SourcePart:
     band_hi: np.ndarray
     v_rms: np.ndarray
     i_rms: np.ndarray
+    live: np.ndarray  # the harmonic exists (not a spectral null of the source's waveform)
     gains: dict[str, np.ndarray]
     tuning: np.ndarray
     owner: np.ndarray
@@ -290,7 +291,8 @@ def _source_part(board: Board, source: Clock | Current, lo: float, hi: float) ->
     magnitude = np.abs(phasor)
     current = magnitude * _current_per_unit(source, f)
     voltage = magnitude if isinstance(source, Clock) else np.full(f.shape, np.nan)
-    return _SourcePart(lines, source, n, f, band_lo, band_hi, voltage, current, gains, tuning, owner, unspread, rbw)
+    return _SourcePart(lines, source, n, f, band_lo, band_hi, voltage, current, magnitude > 0, gains, tuning, owner,
+                       unspread, rbw)
 
 
 def _decoupling_columns(board: Board, part: _SourcePart, own: dict, share: dict, limit: dict, span_hz):
@@ -337,8 +339,7 @@ def _decoupling_columns(board: Board, part: _SourcePart, own: dict, share: dict,
     grid = np.geomspace(span_hz[0] / 10, span_hz[1] * 2, 4000)
     for _, _, lo, hi in anti_resonances(grid, rail.decoupling_impedance(grid)):
         flags["near-anti-resonance"] |= (f >= lo) & (f <= hi)
-    live = part.v_rms > 0 if isinstance(source, Clock) else part.i_rms > 0
-    flags = {k: v & live for k, v in flags.items()}
+    flags = {k: v & part.live for k, v in flags.items()}
     return np.abs(z_dec), suppression, required, flags
 
 
@@ -361,11 +362,10 @@ def _row_max(values: np.ndarray, owner: np.ndarray, rows: int) -> np.ndarray:
     return np.where(np.isneginf(out), np.nan, out)
 
 
-def _read_at(parts: list[_SourcePart], tuning: np.ndarray, detectors):
+def _read_at(sources: list[SourceLines], tuning: np.ndarray, detectors):
     """Each source's readings at the tuning frequencies, and all sources combined."""
-    per_source = [sweep(p.lines.line_hz, p.lines.line_amplitude, p.lines.grid_hz, tuning, detectors)
-                  for p in parts]
-    return per_source, _combine(per_source, [p.source.reference for p in parts], detectors)
+    per_source = [sweep(s.line_hz, s.line_amplitude, s.grid_hz, tuning, detectors) for s in sources]
+    return per_source, _combine(per_source, [s.reference for s in sources], detectors)
 
 
 def _refinement(part: _SourcePart, combined_here: dict[str, np.ndarray]):
@@ -407,8 +407,7 @@ def _overlap_flags(parts: list[_SourcePart]) -> list[dict[str, np.ndarray]]:
         for other in parts:
             if other is part:
                 continue
-            live = other.i_rms > 0 if isinstance(other.source, Current) else other.v_rms > 0
-            lo_o, hi_o = other.band_lo[live], other.band_hi[live]
+            lo_o, hi_o = other.band_lo[other.live], other.band_hi[other.live]
             order = np.argsort(lo_o)
             lo_o, hi_o = lo_o[order], np.maximum.accumulate(hi_o[order]) if hi_o.size else hi_o
             # the last band starting before our upper edge (+ RBW) must end after our lower edge (- RBW)
@@ -440,12 +439,12 @@ def estimate(board: Board) -> Estimate:
 
     coarse = cat([p.tuning for p in parts])
     coarse_seg = np.cumsum([0] + [p.tuning.size for p in parts])
-    per_source, combined = _read_at(parts, coarse, detectors)
+    per_source, combined = _read_at([p.lines for p in parts], coarse, detectors)
     refined = [_refinement(p, {d: combined[d][coarse_seg[k]:coarse_seg[k + 1]] for d in detectors})
                for k, p in enumerate(parts)]
     fine = cat([r[0] for r in refined])
     fine_seg = np.cumsum([0] + [r[0].size for r in refined])
-    per_source_fine, combined_fine = _read_at(parts, fine, detectors)
+    per_source_fine, combined_fine = _read_at([p.lines for p in parts], fine, detectors)
     limits_coarse = board.limit.levels(coarse) if coarse.size else {d: np.array([]) for d in detectors}
     limits_fine = board.limit.levels(fine) if fine.size else {d: np.array([]) for d in detectors}
     overlaps = _overlap_flags(parts)
@@ -461,7 +460,7 @@ def estimate(board: Board) -> Estimate:
 
         own = {d: per_row(per_source[k][d], per_source_fine[k][d]) for d in detectors}
         # a harmonic on a spectral null has no reading of its own, whatever else sits at its frequency
-        live = np.abs(_phasors(part.source, part.n)) > 0
+        live = part.live
         reading = {d: np.where(live, per_row(combined[d], combined_fine[d]), 0.0) for d in detectors}
         # the lowest limit over the row's tuning points (NaN where no line of that detector applies)
         limit = {d: -per_row(-limits_coarse[d], -limits_fine[d]) for d in detectors}
@@ -579,6 +578,5 @@ def swept_spectrum(est: Estimate, detectors=SWEPT_DETECTORS) -> tuple[np.ndarray
             grids.append(np.arange(start, stop, band.rbw_hz / 2))
     exact = [s.line_hz for s in est.sources if not s.modulated]
     tuning = np.unique(np.concatenate(grids + [x[(x >= lo) & (x <= hi)] for x in exact] + [np.array([hi])]))
-    per_source = [sweep(s.line_hz, s.line_amplitude, s.grid_hz, tuning, detectors) for s in est.sources]
-    combined = _combine(per_source, [s.reference for s in est.sources], detectors)
+    _, combined = _read_at(list(est.sources), tuning, detectors)
     return tuning, {d: db_micro(v) for d, v in combined.items()}
