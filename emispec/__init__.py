@@ -16,30 +16,37 @@ Python use::
 __version__ = "0.1.0"
 
 from .board import Board, BoardError, load_board, read_board_data  # noqa: E402
-from .explore import Solution, Variant, plan_rows  # noqa: E402
+from .ensemble import Ensemble, EnsembleResult, evaluate  # noqa: E402
+from .explore import Solution, Variant  # noqa: E402
 from .explore import solve as _solve  # noqa: E402
 from .explore import vary as _vary  # noqa: E402
 from .limits import Limit, load_limit  # noqa: E402
-from .margin import Estimate, estimate, swept_spectrum  # noqa: E402
+from .parameters import Parameter, Template  # noqa: E402
+from .pipeline import Estimate, estimate, swept_spectrum  # noqa: E402
+from .plan import plan_rows  # noqa: E402
+from .rows import Verdict  # noqa: E402
 
 __all__ = [
-    "__version__", "Board", "BoardError", "load_board", "Limit", "load_limit", "Estimate", "estimate",
-    "swept_spectrum", "vary", "solve", "test_plan", "Variant", "Solution",
+    "__version__", "Board", "BoardError", "load_board", "read_board_data", "Limit", "load_limit", "Estimate",
+    "estimate", "swept_spectrum", "vary", "solve", "test_plan", "Variant", "Solution", "Template", "Parameter",
+    "Ensemble", "EnsembleResult", "evaluate", "Verdict",
 ]
 
 
-def vary(board_file, changes: dict, mode: str = "cross") -> list[Variant]:
-    """Estimate a board file with each combination of values (see :func:`emispec.explore.vary`)."""
-    data, file, base_dir, _ = read_board_data(board_file)
-    return _vary(data, file, base_dir, changes, mode)
+def _template(board) -> Template:
+    return board if isinstance(board, Template) else Template.load(board)
+
+
+def vary(board_file, changes: dict, mode: str = "cross", executor=None) -> list[Variant]:
+    """Estimate a board file (or a :class:`Template`) with each combination of values (see :func:`emispec.explore.vary`)."""
+    return _vary(_template(board_file), changes, mode, executor=executor)
 
 
 def solve(board_file, key: str, low: str, high: str, points: int = 17, scope: str | None = "auto") -> Solution:
     """The value of ``key`` in [low, high] that just keeps the guard band (see :func:`emispec.explore.solve`)."""
-    data, file, base_dir, _ = read_board_data(board_file)
-    return _solve(data, file, base_dir, key, low, high, points, scope=scope)
+    return _solve(_template(board_file), key, low, high, points, scope=scope)
 
 
 def test_plan(result: Estimate, everything: bool = False) -> list[dict]:
-    """What to measure first, worst margin first (see :func:`emispec.explore.plan_rows`)."""
+    """What to measure first, worst margin first (see :func:`emispec.plan.plan_rows`)."""
     return plan_rows(result, everything)

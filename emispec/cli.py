@@ -15,10 +15,12 @@ from rich.markup import escape as esc
 from rich.table import Table
 
 from . import __version__
-from .board import BoardError, load_board, read_board_data
+from .board import BoardError, load_board
+from .columns import column_values, columns_for, header_cells, text_cells, verdict_text
+from .flags import FLAGS
 from .limits import LimitError, bundled_limits, load_limit
-from .margin import estimate as run_estimate
-from .receiver import band_names
+from .parameters import Template, scope_of
+from .pipeline import estimate as run_estimate
 from .report import CAUTION, atomic_write, file_part, json_text, write_outputs
 from .units import format_quantity
 
@@ -59,23 +61,13 @@ def _fmt(x: float) -> str:
     return "null" if not x == x else f"{x:.1f}"
 
 
-SHORT_FLAGS = {"over-limit": "OVER", "within-guard-band": "guard", "near-field": "near", "spectral-null": "null",
-               "loop-electrically-large": "big-loop", "decoupling-insufficient": "decap",
-               "above-target-impedance": ">Zt", "near-anti-resonance": "anti-res"}
-
-
-def _short_flag(flag: str) -> str:
-    return "+" + flag.split(":", 1)[1] if flag.startswith("overlaps:") else SHORT_FLAGS.get(flag, flag)
-
-
 def _margin_style(margin: float, guard: float) -> str:
     if not margin == margin:
         return "dim"
     return "bold red" if margin < 0 else "yellow" if margin < guard else "green"
 
 
-def _verdict_style(verdict: str) -> str:
-    return "bold red" if verdict.startswith("FAILS") else "bold yellow" if verdict.startswith("MARGINAL") else "bold green"
+_VERDICT_STYLE = {"fails": "bold red", "marginal": "bold yellow", "meets": "bold green", "no-data": "bold"}
 
 
 @app.command()
@@ -95,7 +87,7 @@ def estimate(
         _write(lambda: write_outputs(result, out_dir), str(out_dir))
     if to_stdout:
         sys.stdout.write(json_text(result))
-        err.print(result.verdict(), markup=False)
+        err.print(verdict_text(result.outcome), markup=False)
         return
     _print_table(result, rows)
 
@@ -117,37 +109,34 @@ def _write_into(folder: Path, files: dict) -> None:
     _write(write, str(folder))
 
 
+def _print_verdict(result) -> None:
+    outcome = result.outcome
+    out.print(f"[{_VERDICT_STYLE[outcome.kind]}]{esc(verdict_text(outcome))}[/]")
+
+
 def _print_table(result, count: int) -> None:
     rows, board = result.rows, result.board
     shown = len(rows) if count == 0 else min(count, len(rows))
     unit = board.limit.unit
+    legend = ", ".join(f"{flag.short} ({flag.meaning})" for flag in sorted(FLAGS.values(), key=lambda f: f.rank))
     table = Table(title=f"{esc(board.title)}\nworst {shown} of {len(rows)} harmonics against "
                   f"{esc(board.limit.name)} ({unit})",
-                  title_style="bold", caption="reading, limit, margin: the detector with the least margin. SSC dB: what the spread "
-                  "buys there. flags: OVER the limit, inside the guard band, near field, null (spectral "
-                  "null), +name (another source within one RBW), decap (decoupling lets too much escape), >Zt "
-                  "(above the target impedance), anti-res (near an anti-resonance). --json and --out give "
-                  "every detector.", caption_style="dim")
-    for name, justify in (("source", "left"), ("n", "right"), ("MHz", "right"), ("band", "left"),
-                          ("det", "left"), ("read", "right"), ("limit", "right"),
-                          ("margin", "right"), ("SSC dB", "right"), ("flags", "left")):
-        table.add_column(name, justify=justify, no_wrap=name != "flags", overflow="fold")
-    bands = band_names(rows.frequency_hz[:shown])
+                  title_style="bold", caption="reading, limit, margin: the detector with the least margin. SSC dB: what "
+                  f"the spread buys there. flags: {legend}; +name: another source within one RBW. --json and --out "
+                  "give every detector.", caption_style="dim")
+    columns = columns_for(result, "term")
+    for c, head in zip(columns, header_cells(result, columns, "term")):
+        left = c.kind in ("text", "flags")
+        table.add_column(head, justify="left" if left else "right", no_wrap=c.kind != "flags", overflow="fold")
+    values = column_values(result, columns)
+    margin_at = [c.name for c in columns].index("worst_margin")
     for i in range(shown):
-        det = rows.worst_detector[i]
-        reading = rows.readings[det][i] if det else max(rows.readings[d][i] for d in board.limit.detectors)
-        limit = rows.limits[det][i] if det else float("nan")
-        margin = rows.worst_margin_db[i]
-        ssc = _fmt(rows.spread_reduction_db[det][i]) if det and rows.spread[i] else "-"
-        table.add_row(
-            esc(str(rows.source[i])), str(rows.harmonic[i]), f"{rows.frequency_hz[i] / 1e6:.6g}", str(bands[i]),
-            det or "-", _fmt(reading), _fmt(limit), f"[{_margin_style(margin, board.guard_band_db)}]{_fmt(margin)}[/]",
-            ssc,
-            esc(" ".join(_short_flag(flag) for flag in rows.flag_list(i))),
-        )
+        cells = [esc(cell) for cell in text_cells(result, columns, values, i, "term")]
+        style = _margin_style(rows.worst_margin_db[i], board.guard_band_db)
+        cells[margin_at] = f"[{style}]{cells[margin_at]}[/]"
+        table.add_row(*cells)
     out.print(table)
-    verdict = result.verdict()
-    out.print(f"[{_verdict_style(verdict)}]{esc(verdict)}[/]")
+    _print_verdict(result)
     out.print(f"[dim]{CAUTION}[/]")
 
 
@@ -204,7 +193,7 @@ def rails(
     out_dir: Path = typer.Option(Path("."), "--out", help="Folder for the rail plots (rail-NAME.png)."),
 ) -> None:
     """Each rail's parts with self-resonances, anti-resonance peaks, and a plot of |Z_dec| with the harmonics."""
-    from .decoupling import rail_summary
+    from .pipeline import rail_view
     from .plot import png_bytes, rail_figure
 
     result = run_estimate(load_board(board))
@@ -212,7 +201,8 @@ def rails(
         raise OutputError(f"{board}: rail: the board defines no [[rail]]")
     rows = result.rows
     for name, rail in result.board.rails.items():
-        summary = rail_summary(rail, result.span_hz)
+        view = rail_view(result, name)
+        summary = view.summary
         target = f", target {format_quantity(rail.target_ohm, 'ohm')}" if rail.target_ohm else ""
         table = Table(title=f"rail {esc(name)} ({rail.voltage_v:g} V{target})", title_style="bold")
         for col in ("part", "value", "detail", "count", "self-resonance"):
@@ -234,7 +224,7 @@ def rails(
                       f"|Z_dec| {format_quantity(rows.decoupling_impedance_ohm[i], 'ohm')}, needs <= "
                       f"{format_quantity(rows.required_impedance_ohm[i], 'ohm')}", markup=False)
         plot_name = f"rail-{file_part(name)}.png"
-        _write_into(out_dir, {plot_name: lambda name=name: png_bytes(rail_figure(result, name))})
+        _write_into(out_dir, {plot_name: lambda view=view: png_bytes(rail_figure(result, view))})
         out.print(f"  plot: {Path(out_dir) / plot_name}", markup=False)
     out.print(f"[dim]{CAUTION}[/]")
 
@@ -264,19 +254,23 @@ def _progress(total: int, what: str):
 
     progress = Progress(console=err, transient=True)
     task = progress.add_task(what, total=total)
-    return progress, (lambda: progress.advance(task))
+    return progress, (lambda count=1: progress.advance(task, count))
 
 
 def _run_variants(board: Path, sets: list[str], zipped: bool):
+    from .ensemble import process_pool
     from .explore import vary
 
-    data, file, base_dir, _ = read_board_data(board)
+    template = Template.load(board)
     changes = _parse_sets(sets)
     lengths = [len(v) for v in changes.values()]
     total = lengths[0] if zipped else int(np.prod(lengths))
     progress, advance = _progress(total, f"{total} variants")
     with progress:
-        return vary(data, file, base_dir, changes, "zip" if zipped else "cross", progress=advance)
+        if total < 4:
+            return vary(template, changes, "zip" if zipped else "cross", progress=advance)
+        with process_pool() as pool:
+            return vary(template, changes, "zip" if zipped else "cross", progress=advance, executor=pool)
 
 
 @app.command("vary")
@@ -323,17 +317,17 @@ def solve_command(
                                      help="Judge every source's harmonics, not only the source the key belongs to."),
 ) -> None:
     """Find the value at which the board just keeps the guard band (fastest edge, least spread, largest loop)."""
-    from .explore import scope_of, solve
+    from .explore import solve
 
     low, sep, high = span.partition("..")
     if not sep:
         raise OutputError(f"--range {span!r}: write LOW..HIGH, e.g. '0.2 ns..5 ns'")
-    data, file, base_dir, _ = read_board_data(board)
+    template = Template.load(board)
     scope = None if whole_board else scope_of(key)
     progress, advance = _progress(points + 40, f"solving {key}")
     try:
         with progress:
-            solution = solve(data, file, base_dir, key, low, high, points, progress=advance, scope=scope)
+            solution = solve(template, key, low, high, points, progress=advance, scope=scope)
     except ValueError as problem:
         if isinstance(problem, BoardError):
             raise
@@ -358,7 +352,7 @@ def plan_command(
     out_dir: Optional[Path] = typer.Option(None, "--out", help="Write testplan.csv and testplan.md here."),
 ) -> None:
     """The pre-compliance test plan: what to measure first, with band, RBW, detector and expected reading."""
-    from .explore import plan_rows
+    from .plan import plan_rows
     from .report import plan_csv_text, plan_markdown_text
 
     result = run_estimate(load_board(board))
@@ -394,7 +388,7 @@ def report_command(
     everything: bool = typer.Option(False, "--all", help="Test plan with every harmonic."),
 ) -> None:
     """One self-contained HTML report: verdict, margins, plots, variants and test plan."""
-    from .explore import plan_rows
+    from .plan import plan_rows
     from .report import html_text
 
     result = run_estimate(load_board(board))

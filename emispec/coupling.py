@@ -22,11 +22,16 @@ H. W. Ott, *Electromagnetic Compatibility Engineering*, Wiley, 2009, ch. 12
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import ClassVar, Protocol
 
 import numpy as np
 from scipy import constants
 
 from .decoupling import lisn_impedance
+from .flags import declare
+from .schema import BoardError, Key, TableReader
+from .trace import Trace, interp_log_f
+from .units import QuantityError, parse_quantity
 
 __all__ = [
     "LOOP_CONSTANT",
@@ -34,12 +39,14 @@ __all__ = [
     "cable_field",
     "near_field",
     "interpolate_db_log_f",
+    "Path",
     "LoopPath",
     "CablePath",
     "TransferPath",
     "ConductedPath",
     "COMMON_MODE_OHM",
-    "Path",
+    "PATH_KINDS",
+    "path_from_table",
 ]
 
 #: pi eta0 / c^2 [s^2 ohm / m^2]: |E| = K f^2 A I / r for a small loop in free
@@ -119,26 +126,65 @@ def near_field(frequency_hz, distance_m):
 
 
 def interpolate_db_log_f(frequency_hz, table_hz, table_db):
-    """Interpolate a dB table linearly over log frequency, holding the end values.
-
-    Parameters
-    ----------
-    frequency_hz : array_like
-        Frequencies to evaluate [Hz].
-    table_hz, table_db : array_like
-        Ascending table frequencies [Hz] and their values [dB].
-    """
-    return np.interp(np.log10(frequency_hz), np.log10(table_hz), table_db)
+    """Interpolate a dB table linearly over log frequency, holding the end values (see :func:`interp_log_f`)."""
+    return interp_log_f(frequency_hz, table_hz, table_db, outside="hold")
 
 
 #: Common-mode impedance of an attached cable, as in the CDNs and ISNs of
 #: CISPR 16-1-2 and IEC 61000-4-6 (150 ohm).
 COMMON_MODE_OHM = 150.0
 
+NEAR_FIELD = declare("near-field", "near", "near field (r < lambda / 2 pi)", 10)
+LOOP_LARGE = declare("loop-electrically-large", "big-loop",
+                     "loop too large for the small-loop formula", 11)
+
+
+class Path(Protocol):
+    """A coupling path: from a source quantity to what the limit is written in.
+
+    ``input`` names the source quantity it reads ("voltage", "current", or
+    "escape": the rail current that leaves the decoupling through the path's
+    own ``termination``).  ``reading`` returns the linear level in the limit's
+    unit at the limit's distance; ``flags`` the validity flags of the model at
+    each frequency.  Each kind declares its board-file keys (``KEYS``), the
+    kinds of limit it serves (``SERVES``) and reads its own table.
+    """
+
+    KIND: ClassVar[str]
+    SERVES: ClassVar[tuple[str, ...]]
+    KEYS: ClassVar[tuple[Key, ...]]
+    name: str
+    input: str
+    distance_m: float | None
+
+    def reading(self, frequency_hz, source: dict, limit_distance_m) -> np.ndarray: ...
+
+    def flags(self, frequency_hz, limit_distance_m) -> dict[str, np.ndarray]: ...
+
+
+_NAME = Key("name", "text", required=True)
+_KIND = Key("kind", "text", required=True)
+_DISTANCE = Key("distance", "length", low=0.0, high=1e3)
+_REFLECTION = Key("ground_reflection", "bool", default=True)
+_TERMINATION = Key("termination", "resistance", default=COMMON_MODE_OHM, low=0.0)
+
+
+def _distance(r: TableReader, limit) -> float | None:
+    if not r.has("distance"):
+        return None
+    if limit.measurement != "radiated":
+        raise r.error("distance", "only radiated paths have a distance")
+    return r.get("distance")
+
 
 @dataclass(frozen=True)
 class LoopPath:
     """Differential-mode radiation of the loop the source current flows in."""
+
+    KIND: ClassVar[str] = "loop"
+    SERVES: ClassVar[tuple[str, ...]] = ("radiated",)
+    KEYS: ClassVar[tuple[Key, ...]] = (_NAME, _KIND, Key("area", "area", required=True, low=0.0), _DISTANCE,
+                                       _REFLECTION)
 
     name: str
     area_m2: float
@@ -148,6 +194,18 @@ class LoopPath:
 
     def reading(self, frequency_hz, source, limit_distance_m):
         return loop_field(frequency_hz, source["current"], self.area_m2, limit_distance_m, self.ground_reflection)
+
+    def flags(self, frequency_hz, limit_distance_m):
+        f = np.asarray(frequency_hz, dtype=float)
+        # the small-loop formula assumes a perimeter well below lambda; lambda/10 is common practice, no source
+        return {NEAR_FIELD: near_field(f, self.distance_m or limit_distance_m),
+                LOOP_LARGE: 4 * np.sqrt(self.area_m2) > (299_792_458.0 / f) / 10}
+
+    @classmethod
+    def from_table(cls, r: TableReader, limit) -> LoopPath:
+        distance = _distance(r, limit)
+        return cls(r.get("name"), area_m2=r.get("area"), distance_m=distance,
+                   ground_reflection=r.get("ground_reflection"))
 
 
 @dataclass(frozen=True)
@@ -160,6 +218,14 @@ class CablePath:
     ``termination_ohm``; a ratio below 1 stands for the part of an escaping
     differential current that converts to common mode.
     """
+
+    KIND: ClassVar[str] = "cable"
+    SERVES: ClassVar[tuple[str, ...]] = ("radiated",)
+    KEYS: ClassVar[tuple[Key, ...]] = (
+        _NAME, _KIND, Key("length", "length", required=True, low=0.0),
+        Key("drive", "choice", default="ratio", choices=("ratio", "escape")),
+        Key("ratio", "gain"), _DISTANCE, _REFLECTION, _TERMINATION,
+    )
 
     name: str
     length_m: float
@@ -180,6 +246,46 @@ class CablePath:
         current = self.ratio * source[self.input]
         return cable_field(frequency_hz, current, self.length_m, limit_distance_m, self.ground_reflection)
 
+    def flags(self, frequency_hz, limit_distance_m):
+        return {NEAR_FIELD: near_field(frequency_hz, self.distance_m or limit_distance_m)}
+
+    @classmethod
+    def from_table(cls, r: TableReader, limit) -> CablePath:
+        distance = _distance(r, limit)
+        drive = r.get("drive")
+        length = r.get("length")
+        reflection = r.get("ground_reflection")
+        if drive == "ratio" and r.has("termination"):
+            raise r.error("termination", "only with drive = 'escape'")
+        if not r.has("ratio") and drive == "ratio":
+            raise r.error("ratio", "missing; give the common-mode current relative to the source current, "
+                          "e.g. '-30 dB' or 0.03")
+        ratio = r.get("ratio") if r.has("ratio") else 1.0
+        if drive == "escape":
+            return cls(r.get("name"), length, ratio, distance, reflection, r.get("termination"), drive="escape")
+        return cls(r.get("name"), length, ratio, distance, reflection)
+
+
+def _gain_table(r: TableReader, name: str) -> Trace:
+    """A ``[[frequency, dB], ...]`` table in strictly ascending frequency."""
+    gain = r.table.get(name)
+    allowed = 'a list of [frequency, dB] pairs in ascending frequency, e.g. [["1 MHz", -20.0], ["1 GHz", -20.0]]'
+    if not isinstance(gain, list) or not gain:
+        raise r.error(name, f"expected {allowed}", gain)
+    freqs, gains = [], []
+    for k, point in enumerate(gain):
+        if not (isinstance(point, list) and len(point) == 2):
+            raise r.error(f"{name}[{k}]", f"expected {allowed}", point)
+        try:
+            freqs.append(parse_quantity(point[0], "frequency"))
+            gains.append(parse_quantity(point[1], "decibel"))
+        except QuantityError as err:
+            raise r.error(f"{name}[{k}]", str(err), point) from None
+    freqs_a = np.array(freqs)
+    if np.any(freqs_a <= 0) or np.any(np.diff(freqs_a) <= 0):
+        raise r.error(name, "frequencies must be > 0 Hz and strictly ascending")
+    return Trace(freqs_a, np.array(gains), "dB", outside="hold", origin=r.sub(name))
+
 
 @dataclass(frozen=True)
 class TransferPath:
@@ -191,10 +297,16 @@ class TransferPath:
     supply path.
     """
 
+    KIND: ClassVar[str] = "transfer"
+    SERVES: ClassVar[tuple[str, ...]] = ("radiated", "conducted")
+    KEYS: ClassVar[tuple[Key, ...]] = (
+        _NAME, _KIND, Key("input", "choice", required=True, choices=("voltage", "current", "escape")),
+        Key("gain", "any"), _DISTANCE, _TERMINATION,
+    )
+
     name: str
     input: str
-    table_hz: np.ndarray
-    table_db: np.ndarray
+    gain: Trace
     distance_m: float | None = None
     termination_ohm: float = COMMON_MODE_OHM
 
@@ -202,9 +314,20 @@ class TransferPath:
         return np.full(np.shape(frequency_hz), self.termination_ohm, dtype=complex)
 
     def reading(self, frequency_hz, source, limit_distance_m):
-        gain = 10.0 ** (interpolate_db_log_f(frequency_hz, self.table_hz, self.table_db) / 20.0)
+        gain = 10.0 ** (self.gain.at(frequency_hz) / 20.0)
         scale = 1.0 if self.distance_m is None or limit_distance_m is None else self.distance_m / limit_distance_m
         return source[self.input] * gain * scale
+
+    def flags(self, frequency_hz, limit_distance_m):
+        return {}
+
+    @classmethod
+    def from_table(cls, r: TableReader, limit) -> TransferPath:
+        distance = _distance(r, limit)
+        source = r.get("input")
+        if r.has("termination") and source != "escape":
+            raise r.error("termination", "only with input = 'escape'")
+        return cls(r.get("name"), source, _gain_table(r, "gain"), distance, r.get("termination"))
 
 
 @dataclass(frozen=True)
@@ -216,6 +339,13 @@ class ConductedPath:
     series with the 50 uH inductor (5 ohm in the 50 uH + 5 ohm network; 0 for
     the plain 50 ohm // 50 uH network).
     """
+
+    KIND: ClassVar[str] = "conducted"
+    SERVES: ClassVar[tuple[str, ...]] = ("conducted",)
+    #: LISN variants: the series resistor of CISPR 16-1-2's 50 uH network
+    LISNS: ClassVar[dict[str, float]] = {"50uH+5ohm": 5.0, "50uH": 0.0}
+    KEYS: ClassVar[tuple[Key, ...]] = (_NAME, _KIND, Key("lisn", "choice", default="50uH+5ohm",
+                                                         choices=("50uH+5ohm", "50uH")))
 
     name: str
     measure: str = "voltage"
@@ -230,5 +360,30 @@ class ConductedPath:
         current = source["escape"]
         return current * np.abs(self.termination(frequency_hz)) if self.measure == "voltage" else current
 
+    def flags(self, frequency_hz, limit_distance_m):
+        return {}
 
-Path = LoopPath | CablePath | TransferPath | ConductedPath
+    @classmethod
+    def from_table(cls, r: TableReader, limit) -> ConductedPath:
+        lisn = r.get("lisn")
+        return cls(r.get("name"), "voltage" if limit.unit == "dBuV" else "current", cls.LISNS[lisn])
+
+
+#: Board-file ``kind`` -> path class.
+PATH_KINDS: dict[str, type] = {cls.KIND: cls for cls in (LoopPath, CablePath, TransferPath, ConductedPath)}
+
+
+def path_from_table(file: str, name: str, table: dict, limit) -> Path:
+    """Read one ``[[path]]`` table with the schema of its ``kind``."""
+    key = f"path[{name}]"
+    if not isinstance(table, dict) or "kind" not in table:
+        raise BoardError(file, f"{key}.kind", f"missing; allowed: {', '.join(PATH_KINDS)}")
+    kind = table["kind"]
+    if kind not in PATH_KINDS:
+        raise BoardError(file, f"{key}.kind", f"allowed: {', '.join(PATH_KINDS)}", kind)
+    cls = PATH_KINDS[kind]
+    r = TableReader(file, key, table, cls.KEYS)
+    if limit.measurement not in cls.SERVES:
+        serving = [k for k, c in PATH_KINDS.items() if limit.measurement in c.SERVES]
+        raise r.error("kind", f"a {limit.measurement} limit ({limit.name}) takes {', '.join(serving)} paths", kind)
+    return cls.from_table(r, limit)

@@ -24,12 +24,17 @@ Shunt-through impedance measurement: Z = (Z0 / 2) S21 / (1 - S21).
 
 from __future__ import annotations
 
-import csv
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import ClassVar
 
 import numpy as np
-from scipy import constants, signal
+from scipy import constants
+
+from .flags import declare
+from .readers import TouchstoneError, read_impedance_table, read_touchstone
+from .schema import BoardError, Key, TableReader
+from .trace import interp_log_f
 
 __all__ = [
     "Capacitor",
@@ -38,27 +43,38 @@ __all__ = [
     "Measured",
     "SeriesRL",
     "Rail",
+    "PART_KINDS",
     "TouchstoneError",
     "self_resonance_hz",
     "network_impedance",
     "lisn_impedance",
     "escape_fraction",
+    "impedance_for_escape",
     "anti_resonances",
     "target_impedance",
-    "read_touchstone",
-    "read_impedance_table",
     "part_summary",
     "rail_summary",
 ]
 
+DECOUPLING_INSUFFICIENT = declare("decoupling-insufficient", "decap",
+                                  "decoupling lets too much escape", 30)
+ABOVE_TARGET = declare("above-target-impedance", ">Zt", "above the target impedance", 31)
+NEAR_ANTI_RESONANCE = declare("near-anti-resonance", "anti-res", "near an anti-resonance", 32)
 
-class TouchstoneError(ValueError):
-    """A Touchstone or impedance-table file that cannot be used."""
+_ZERO_OR_MORE = {"low": 0.0, "low_open": False}
 
 
 @dataclass(frozen=True)
 class Capacitor:
     """``count`` equal capacitors in parallel, each a series ESR + (ESL + mounting L) + C."""
+
+    KEYS: ClassVar[tuple[Key, ...]] = (
+        Key("kind", "text"), Key("capacitance", "capacitance", required=True, low=0.0),
+        Key("esr", "resistance", default=0.0, **_ZERO_OR_MORE),
+        Key("esl", "inductance", default=0.0, **_ZERO_OR_MORE),
+        Key("mounting_inductance", "inductance", default=0.0, **_ZERO_OR_MORE),
+        Key("count", "count", default=1, low=1, high=10000),
+    )
 
     capacitance_f: float
     esr_ohm: float = 0.0
@@ -78,10 +94,20 @@ class Capacitor:
         w = 2 * np.pi * np.asarray(frequency_hz, dtype=float)
         return (self.esr_ohm + 1j * w * self.inductance_h + 1 / (1j * w * self.capacitance_f)) / self.count
 
+    @classmethod
+    def from_table(cls, r: TableReader, ctx) -> Capacitor:
+        return cls(r.get("capacitance"), r.get("esr"), r.get("esl"), r.get("mounting_inductance"), r.get("count"))
+
 
 @dataclass(frozen=True)
 class Plane:
     """A power/ground plane pair as a parallel-plate capacitor C = eps0 epsr A / d."""
+
+    KEYS: ClassVar[tuple[Key, ...]] = (
+        Key("kind", "text"), Key("area", "area", required=True, low=0.0),
+        Key("separation", "length", required=True, low=0.0),
+        Key("permittivity", "number", required=True, low=1.0, high=100.0, what="a relative permittivity"),
+    )
 
     area_m2: float
     separation_m: float
@@ -94,16 +120,35 @@ class Plane:
     def impedance(self, frequency_hz) -> np.ndarray:
         return 1 / (2j * np.pi * np.asarray(frequency_hz, dtype=float) * self.capacitance_f)
 
+    @classmethod
+    def from_table(cls, r: TableReader, ctx) -> Plane:
+        permittivity = r.get("permittivity")
+        return cls(r.get("area"), r.get("separation"), permittivity)
+
 
 @dataclass(frozen=True)
 class SeriesRL:
     """A series resistance and inductance: a regulator output, a supply trace, a bead's simple model."""
+
+    KEYS: ClassVar[tuple[Key, ...]] = (Key("resistance", "resistance", default=0.0, **_ZERO_OR_MORE),
+                                       Key("inductance", "inductance", default=0.0, **_ZERO_OR_MORE))
 
     resistance_ohm: float = 0.0
     inductance_h: float = 0.0
 
     def impedance(self, frequency_hz) -> np.ndarray:
         return self.resistance_ohm + 2j * np.pi * np.asarray(frequency_hz, dtype=float) * self.inductance_h
+
+    @classmethod
+    def from_table(cls, r: TableReader, ctx=None) -> SeriesRL:
+        return cls(r.get("resistance"), r.get("inductance"))
+
+    @classmethod
+    def regulator_from_table(cls, r: TableReader, ctx) -> SeriesRL:
+        part = cls.from_table(r)
+        if part.resistance_ohm == 0 and part.inductance_h == 0:
+            raise r.error("resistance", "give the regulator's output resistance and/or inductance (> 0)")
+        return part
 
 
 Regulator = SeriesRL
@@ -118,6 +163,9 @@ class Measured:
     its reactance scales like an inductor (above) or a capacitor (below).
     """
 
+    KEYS: ClassVar[tuple[Key, ...]] = (Key("kind", "text"), Key("file", "text", required=True),
+                                       Key("count", "count", default=1, low=1, high=10000))
+
     frequency_hz: np.ndarray
     z_ohm: np.ndarray
     count: int = 1
@@ -125,9 +173,8 @@ class Measured:
 
     def impedance(self, frequency_hz) -> np.ndarray:
         f = np.asarray(frequency_hz, dtype=float)
-        lf, lf_data = np.log10(f), np.log10(self.frequency_hz)
-        magnitude = 10 ** np.interp(lf, lf_data, np.log10(np.abs(self.z_ohm)))
-        phase = np.interp(lf, lf_data, np.unwrap(np.angle(self.z_ohm)))
+        magnitude = 10 ** interp_log_f(f, self.frequency_hz, np.log10(np.abs(self.z_ohm)))
+        phase = interp_log_f(f, self.frequency_hz, np.unwrap(np.angle(self.z_ohm)))
         z = magnitude * np.exp(1j * phase)
         for edge, beyond in ((0, f < self.frequency_hz[0]), (-1, f > self.frequency_hz[-1])):
             if beyond.any():
@@ -136,13 +183,50 @@ class Measured:
                 z[beyond] = z_edge.real + 1j * z_edge.imag * scale
         return z / self.count
 
+    @classmethod
+    def from_file(cls, r: TableReader, key: str, ctx, reader, count: int = 1) -> Measured:
+        """A part (or bead) measured in the file named at ``key``, read once per board through ``ctx.files``."""
+        path = Path(ctx.base_dir) / r.get(key)
+        try:
+            data = ctx.files.read(reader, path)
+        except TouchstoneError as err:
+            raise r.error(key, str(err), str(path)) from None
+        return cls(data.frequency_hz, data.z_ohm, count, source=str(r.table[key]))
+
+    @classmethod
+    def touchstone_from_table(cls, r: TableReader, ctx) -> Measured:
+        return cls.from_file(r, "file", ctx, read_touchstone, r.get("count"))
+
+    @classmethod
+    def table_from_table(cls, r: TableReader, ctx) -> Measured:
+        return cls.from_file(r, "file", ctx, read_impedance_table, r.get("count"))
+
 
 Part = Capacitor | Plane | SeriesRL | Measured
+
+#: Board-file part ``kind`` -> (its keys, how its table is read).
+PART_KINDS = {
+    "capacitor": (Capacitor.KEYS, Capacitor.from_table),
+    "plane": (Plane.KEYS, Plane.from_table),
+    "regulator": ((Key("kind", "text"),) + SeriesRL.KEYS, SeriesRL.regulator_from_table),
+    "touchstone": (Measured.KEYS, Measured.touchstone_from_table),
+    "table": (Measured.KEYS, Measured.table_from_table),
+}
 
 
 @dataclass(frozen=True)
 class Rail:
     """A supply rail: its decoupling parts at the IC pins and its path to the outside."""
+
+    BEAD_KEYS: ClassVar[tuple[Key, ...]] = SeriesRL.KEYS + (Key("table", "text"),)
+    SUPPLY_KEYS: ClassVar[tuple[Key, ...]] = SeriesRL.KEYS + (Key("bead", "table", schema=BEAD_KEYS),)
+    KEYS: ClassVar[tuple[Key, ...]] = (
+        Key("name", "text", required=True), Key("voltage", "voltage", required=True, low=0.0),
+        Key("supply_path", "table", schema=SUPPLY_KEYS), Key("target_impedance", "resistance", low=0.0),
+        Key("ripple", "ratio", required=True, low=0.0, high=1.0),
+        Key("transient_current", "current", required=True, low=0.0),
+        Key("part", "tables", schema=lambda table: PART_KINDS[table["kind"]][0]),
+    )
 
     name: str
     voltage_v: float
@@ -159,6 +243,38 @@ class Rail:
         """The supply path from the pins to the connector (trace or plane, then the bead)."""
         z = self.supply.impedance(frequency_hz)
         return z if self.bead is None else z + self.bead.impedance(frequency_hz)
+
+    @classmethod
+    def from_table(cls, r: TableReader, ctx) -> Rail:
+        voltage = r.get("voltage")
+        supply, bead = SeriesRL(), None
+        if r.has("supply_path"):
+            s = r.reader("supply_path", cls.SUPPLY_KEYS)
+            supply = SeriesRL.from_table(s)
+            if s.has("bead"):
+                b = s.reader("bead", cls.BEAD_KEYS)
+                bead = Measured.from_file(b, "table", ctx, read_impedance_table) if b.has("table") else \
+                    SeriesRL.from_table(b)
+        target = None
+        if r.has("target_impedance"):
+            if r.has("ripple") or r.has("transient_current"):
+                raise r.error("target_impedance", "give target_impedance, or ripple and transient_current, not both")
+            target = r.get("target_impedance")
+        elif r.has("ripple") or r.has("transient_current"):
+            target = target_impedance(voltage, r.get("ripple"), r.get("transient_current"))
+        parts_raw = r.table.get("part")
+        if not isinstance(parts_raw, list) or not parts_raw or not all(isinstance(t, dict) for t in parts_raw):
+            raise r.error("part", "expected at least one [[rail.part]] table")
+        parts = tuple(_part_from_table(r.file, f"{r.sub('part')}[{k}]", t, ctx) for k, t in enumerate(parts_raw))
+        return cls(r.get("name"), voltage, parts, supply, bead, target)
+
+
+def _part_from_table(file: str, key: str, table: dict, ctx) -> tuple[str, Part]:
+    kind = table.get("kind") if isinstance(table, dict) else None
+    if kind not in PART_KINDS:
+        raise BoardError(file, f"{key}.kind", f"allowed: {', '.join(PART_KINDS)}", kind)
+    keys, build = PART_KINDS[kind]
+    return kind, build(TableReader(file, key, table, keys), ctx)
 
 
 def self_resonance_hz(capacitance_f: float, inductance_h: float) -> float:
@@ -189,6 +305,20 @@ def escape_fraction(z_dec, z_path) -> np.ndarray:
     return np.asarray(z_dec) / (np.asarray(z_dec) + np.asarray(z_path))
 
 
+def impedance_for_escape(fraction, z_dec, z_path) -> np.ndarray:
+    """The |Z_dec|, at the present phase of ``z_dec``, for which |Z_dec / (Z_dec + Z_path)| = ``fraction``.
+
+    With Z = |Z| exp(j theta): |Z|^2 = d^2 |Z exp(j theta) + Z_path|^2 is a
+    quadratic in |Z|, (1 - d^2)|Z|^2 - 2 d^2 Re(Z_path exp(-j theta)) |Z| - d^2 |Z_path|^2 = 0,
+    whose positive root is the answer; infinite where d >= 1 (any |Z_dec| will do).
+    """
+    d = np.asarray(fraction, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rotated = (z_path * np.exp(-1j * np.angle(z_dec))).real
+        a, b, c = 1 - d**2, -2 * d**2 * rotated, -(d**2) * np.abs(z_path) ** 2
+        return np.where(a > 0, (-b + np.sqrt(b * b - 4 * a * c)) / (2 * a), np.inf)
+
+
 def anti_resonances(frequency_hz, z_ohm, min_prominence_db: float = 3.0):
     """Peaks of |Z|: their frequencies, |Z| and the band around each where |Z| is within 3 dB of the peak.
 
@@ -196,9 +326,11 @@ def anti_resonances(frequency_hz, z_ohm, min_prominence_db: float = 3.0):
     -------
     list of (f_peak, |Z|_peak, f_low, f_high)
     """
+    from scipy.signal import find_peaks  # scipy.signal is slow to import; only rails need it
+
     f = np.asarray(frequency_hz, dtype=float)
     level = 20 * np.log10(np.abs(z_ohm))
-    peaks, _ = signal.find_peaks(level, prominence=min_prominence_db)
+    peaks, _ = find_peaks(level, prominence=min_prominence_db)
     out = []
     for p in peaks:
         below = level < level[p] - 3.0
@@ -213,64 +345,6 @@ def anti_resonances(frequency_hz, z_ohm, min_prominence_db: float = 3.0):
 def target_impedance(voltage_v: float, ripple_fraction: float, transient_a: float) -> float:
     """Z_t = V_dd x allowed ripple / transient current (Smith et al. 1999)."""
     return voltage_v * ripple_fraction / transient_a
-
-
-def read_touchstone(path: Path) -> tuple[np.ndarray, np.ndarray]:
-    """Impedance from a one-port reflection (.s1p) or a two-port shunt-through measurement (.s2p).
-
-    Needs scikit-rf (``pip install 'emispec[touchstone]'``).
-    """
-    try:
-        import skrf
-    except ImportError:
-        raise TouchstoneError(
-            "reading Touchstone files needs scikit-rf; install it with: pip install 'emispec[touchstone]'"
-        ) from None
-    try:
-        network = skrf.Network(str(path))
-    except Exception as err:  # noqa: BLE001 - skrf raises many kinds
-        raise TouchstoneError(f"cannot read {path} as Touchstone ({err})") from None
-    z0 = network.z0[:, 0]
-    if network.nports == 1:
-        s11 = network.s[:, 0, 0]
-        z = z0 * (1 + s11) / (1 - s11)
-    elif network.nports == 2:
-        s21 = network.s[:, 1, 0]
-        z = 0.5 * z0 * s21 / (1 - s21)
-    else:
-        raise TouchstoneError(f"{path}: expected a 1-port or a 2-port (shunt-through) file")
-    return np.asarray(network.f, dtype=float), np.asarray(z, dtype=complex)
-
-
-def read_impedance_table(path: Path) -> tuple[np.ndarray, np.ndarray]:
-    """CSV with a header: frequency_hz plus magnitude_ohm and phase_deg, or resistance_ohm and reactance_ohm.
-
-    Lines starting with '#' are comments.
-    """
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except OSError as err:
-        raise TouchstoneError(f"cannot read {path} ({err.strerror})") from None
-    rows = list(csv.DictReader(line for line in text.splitlines() if line.strip() and not line.startswith("#")))
-    if not rows:
-        raise TouchstoneError(f"{path}: no data rows")
-    columns = set(rows[0])
-    try:
-        f = np.array([float(r["frequency_hz"]) for r in rows])
-        if {"magnitude_ohm", "phase_deg"} <= columns:
-            z = np.array([float(r["magnitude_ohm"]) * np.exp(1j * np.radians(float(r["phase_deg"]))) for r in rows])
-        elif {"resistance_ohm", "reactance_ohm"} <= columns:
-            z = np.array([float(r["resistance_ohm"]) + 1j * float(r["reactance_ohm"]) for r in rows])
-        else:
-            raise KeyError("columns")
-    except (KeyError, ValueError):
-        raise TouchstoneError(
-            f"{path}: expected columns frequency_hz with magnitude_ohm and phase_deg, or with resistance_ohm and "
-            "reactance_ohm"
-        ) from None
-    if np.any(f <= 0) or np.any(np.diff(f) <= 0) or np.any(np.abs(z) == 0) or not np.all(np.isfinite(z)):
-        raise TouchstoneError(f"{path}: frequencies must be > 0 and ascending, impedances finite and non-zero")
-    return f, z
 
 
 def part_summary(kind: str, part) -> dict:

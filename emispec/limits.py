@@ -13,26 +13,22 @@ CISPR 32:2015, Annex A; 47 CFR 15.107, 15.109, 15.35(b), 15.33(b).
 
 from __future__ import annotations
 
-import csv
-import sys
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
 
 import numpy as np
 
+from .readers import FileError, read_toml, read_two_column_csv
+from .receiver import DETECTORS
+from .trace import Trace
 from .units import QuantityError, parse_quantity
-
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover
-    import tomli as tomllib
 
 __all__ = [
     "DETECTORS",
     "UNITS",
     "LimitError",
-    "LimitLine",
+    "limit_line",
     "Limit",
     "upper_frequency_hz",
     "bundled_limits",
@@ -40,8 +36,6 @@ __all__ = [
     "limit_from_mapping",
 ]
 
-#: Detectors a limit line may name: peak, quasi-peak, CISPR average, RMS-average.
-DETECTORS = ("PK", "QP", "AV", "RMS-AV")
 UNITS = ("dBuV/m", "dBuV", "dBuA")
 MEASUREMENTS = ("radiated", "conducted")
 
@@ -54,41 +48,10 @@ class LimitError(ValueError):
         super().__init__(f"{file}: {key}: {problem}")
 
 
-@dataclass(frozen=True)
-class LimitLine:
-    """One detector's limit: ascending frequencies [Hz] and levels [dB]."""
-
-    detector: str
-    frequency_hz: np.ndarray
-    level_db: np.ndarray
-
-    @property
-    def span_hz(self) -> tuple[float, float]:
-        return float(self.frequency_hz[0]), float(self.frequency_hz[-1])
-
-    def level(self, frequency_hz) -> np.ndarray:
-        """Limit level at each frequency; NaN outside the line.
-
-        Linear in dB over log f between points; at a frequency listed twice
-        (a step) the lower level applies.
-        """
-        f = np.atleast_1d(np.asarray(frequency_hz, dtype=float))
-        x = np.log10(self.frequency_hz)
-        y = self.level_db
-        lf = np.log10(f)
-        i = np.clip(np.searchsorted(x, lf, side="right") - 1, 0, len(x) - 2)
-        x0, x1, y0, y1 = x[i], x[i + 1], y[i], y[i + 1]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            t = np.where(x1 > x0, (lf - x0) / (x1 - x0), 0.0)
-        level = y0 + t * (y1 - y0)
-        # exact hits on a listed frequency take the lowest level listed there
-        for xf in np.unique(x):
-            hit = np.isclose(lf, xf, rtol=0, atol=1e-12)
-            if hit.any():
-                level[hit] = y[x == xf].min()
-        lo, hi = self.span_hz
-        inside = (f >= lo * (1 - 1e-12)) & (f <= hi * (1 + 1e-12))
-        return np.where(inside, level, np.nan)
+def limit_line(detector: str, frequency_hz, level_db, unit: str = "dB", origin: str = "") -> Trace:
+    """One detector's limit as a :class:`Trace`: NaN outside its span, the lower level at a step."""
+    return Trace(np.asarray(frequency_hz, dtype=float), np.asarray(level_db, dtype=float), unit, detector, "nan",
+                 origin)
 
 
 @dataclass(frozen=True)
@@ -100,7 +63,7 @@ class Limit:
     source: str
     measurement: str
     unit: str
-    lines: dict[str, LimitLine]
+    lines: dict[str, Trace]
     distance_m: float | None = None
     upper_frequency: str | None = None
     path: str | None = field(default=None, compare=False)
@@ -116,7 +79,7 @@ class Limit:
 
     def levels(self, frequency_hz) -> dict[str, np.ndarray]:
         """Each detector's level at the frequencies (NaN where it does not apply)."""
-        return {det: line.level(frequency_hz) for det, line in self.lines.items()}
+        return {det: line.at(frequency_hz) for det, line in self.lines.items()}
 
 
 def upper_frequency_hz(rule: str | None, highest_internal_hz: float) -> float:
@@ -199,33 +162,12 @@ def _checked(file, key, freqs, levels):
 
 
 def _read_csv_points(path: Path, key: str = "limit"):
-    """Two-column CSV (frequency, level); '# key: value' comment lines carry metadata."""
-    file = str(path)
+    """Two-column CSV (frequency, level) with ``# key: value`` metadata, checked as a limit line."""
     try:
-        text = path.read_text(encoding="utf-8")
-    except OSError as err:
-        raise LimitError(file, key, f"cannot read the file ({err.strerror})") from None
-    meta, freqs, levels = {}, [], []
-    rows = [line for line in text.splitlines() if line.strip()]
-    for lineno, line in enumerate(rows, start=1):
-        if line.lstrip().startswith("#"):
-            name, sep, val = line.lstrip("# ").partition(":")
-            if sep:
-                meta[name.strip().lower()] = val.strip()
-            continue
-        cells = next(csv.reader([line]))
-        if len(cells) != 2:
-            raise LimitError(file, f"line {lineno}", "expected two columns: frequency, level in dB")
-        try:
-            freqs.append(parse_quantity(cells[0].strip(), "frequency"))
-            levels.append(parse_quantity(cells[1].strip(), "decibel"))
-        except QuantityError as err:
-            if not freqs and not levels:  # a header row
-                continue
-            raise LimitError(file, f"line {lineno}", str(err)) from None
-    if len(freqs) < 2:
-        raise LimitError(file, key, "needs at least two (frequency, level) rows")
-    f, y = _checked(file, key, np.array(freqs), np.array(levels))
+        f, y, meta = read_two_column_csv(path, key)
+    except FileError as err:
+        raise LimitError(err.file, err.where, err.problem) from None
+    f, y = _checked(str(path), key, f, y)
     return f, y, meta
 
 
@@ -269,12 +211,12 @@ def limit_from_mapping(data: dict, name: str, file: str, base_dir: Path | None =
         raise LimitError(file, "lines", f"expected a table of detector lines ({', '.join(DETECTORS)})")
     lines = {}
     for det, points in data["lines"].items():
-        _choice(file, f"lines.{det}", det, DETECTORS)
+        _choice(file, f"lines.{det}", det, tuple(DETECTORS))
         f, y = _points(file, f"lines.{det}", points, base_dir)
         if det == "QP" and f[-1] > 1e9 * (1 + 1e-12):
             raise LimitError(file, f"lines.{det}", "a QP line ends at or below 1 GHz (CISPR 16-1-1 defines no "
                              "quasi-peak detector above 1 GHz); use AV and PK lines above")
-        lines[det] = LimitLine(det, f, y)
+        lines[det] = limit_line(det, f, y, unit, file)
     return Limit(
         name=name,
         title=str(data.get("title", name)),
@@ -315,9 +257,7 @@ def load_limit(spec: str, base_dir: Path | None = None) -> Limit:
         data["lines"] = {meta.get("detector", "QP"): [[a, b] for a, b in zip(f.tolist(), y.tolist())]}
         return limit_from_mapping(data, path.stem, file)
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as err:
-        raise LimitError(file, "toml", f"not valid TOML ({err})") from None
-    except OSError as err:
-        raise LimitError(file, "limit", f"cannot read the file ({err.strerror})") from None
+        data, _ = read_toml(path, "limit")
+    except FileError as err:
+        raise LimitError(err.file, err.where, err.problem) from None
     return limit_from_mapping(data, path.stem, file, path.parent)

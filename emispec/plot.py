@@ -1,4 +1,5 @@
-"""Plots of estimates.  Functions take result objects and return the figure."""
+"""Plots of estimates.  Functions take result objects and the data the pipeline computed for them, and return
+the figure; nothing here computes physics."""
 
 from __future__ import annotations
 
@@ -12,8 +13,9 @@ matplotlib.use("Agg")  # files only; never needs a display
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from .board import Clock  # noqa: E402
-from .margin import Estimate, clock_envelope_dbu  # noqa: E402
+from .columns import verdict_text  # noqa: E402
+from .pipeline import Estimate, RailView  # noqa: E402
+from .trace import Trace  # noqa: E402
 
 __all__ = ["spectrum_figure", "swept_figure", "rail_figure", "variants_figure", "png_bytes", "svg_text"]
 
@@ -28,8 +30,8 @@ def png_bytes(figure, dpi: int = 120) -> bytes:
     return buffer.getvalue()
 
 
-def spectrum_figure(est: Estimate):
-    """Harmonic readings, envelopes, limit lines, guard band and over-limit marks.
+def spectrum_figure(est: Estimate, envelopes: dict[str, Trace]):
+    """Harmonic readings, the sources' envelopes through their paths, limit lines, guard band and over-limit marks.
 
     Returns
     -------
@@ -47,8 +49,9 @@ def spectrum_figure(est: Estimate):
         ax.vlines(rows.frequency_hz[mine], -200, reading[mine], color=color, lw=0.8, alpha=0.6)
         ax.plot(rows.frequency_hz[mine], reading[mine], "o", ms=3, color=color,
                 label=f"{source.name} ({source.frequency_hz / 1e6:g} MHz)")
-        if isinstance(source, Clock):  # the trapezoid's envelope through the paths (unspread)
-            ax.plot(grid, clock_envelope_dbu(board, source, grid), "--", lw=0.8, color=color, alpha=0.8)
+        if source.name in envelopes:  # the source's envelope through its paths (unspread)
+            trace = envelopes[source.name]
+            ax.plot(trace.frequency_hz, trace.level_db, "--", lw=0.8, color=color, alpha=0.8)
     limit_max = _limit_lines(ax, est, grid)
     over = rows.flags["over-limit"]
     if over.any():
@@ -69,7 +72,7 @@ def _finish(fig, ax, est: Estimate, what: str) -> None:
     ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
     ax.set_xlabel("Frequency [MHz]")
     ax.set_ylabel(f"Reading [{est.board.limit.unit}]")
-    ax.set_title(f"{est.board.title}: {what} against {est.board.limit.name}\n{est.verdict()}", fontsize=10)
+    ax.set_title(f"{est.board.title}: {what} against {est.board.limit.name}\n{verdict_text(est.outcome)}", fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
     fig.legend(fontsize=8, loc="outside right upper")
     fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
@@ -88,7 +91,7 @@ def _limit_lines(ax, est: Estimate, grid) -> float:
     return max(np.nanmax(v) for v in levels.values() if np.isfinite(v).any())
 
 
-def swept_figure(est: Estimate, frequency_hz, readings: dict):
+def swept_figure(est: Estimate, swept: dict[str, Trace]):
     """Swept receiver readings (PK, QP, AV) of all sources together against the limit.
 
     Returns
@@ -99,8 +102,9 @@ def swept_figure(est: Estimate, frequency_hz, readings: dict):
     fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
     colors = {"PK": "tab:red", "QP": "tab:blue", "AV": "tab:green", "RMS-AV": "tab:purple"}
     top = -np.inf
-    for det, level in readings.items():
-        ax.plot(frequency_hz, level, lw=0.8, color=colors.get(det), label=f"swept {det}")
+    for det, trace in swept.items():
+        level = trace.level_db
+        ax.plot(trace.frequency_hz, level, lw=0.8, color=colors.get(det), label=f"swept {det}")
         if np.isfinite(level).any():
             top = max(top, np.nanmax(level))
     limit_max = _limit_lines(ax, est, np.geomspace(lo, hi, 4000))
@@ -110,7 +114,7 @@ def swept_figure(est: Estimate, frequency_hz, readings: dict):
     return fig
 
 
-def rail_figure(est: Estimate, rail_name: str):
+def rail_figure(est: Estimate, rail: RailView):
     """|Z_dec| of one rail against frequency, with the harmonics drawn from it and what they need.
 
     Marks each harmonic of the sources on the rail at |Z_dec|, the required
@@ -122,12 +126,12 @@ def rail_figure(est: Estimate, rail_name: str):
     matplotlib.figure.Figure
     """
     board = est.board
-    rail = board.rails[rail_name]
+    rail_name = rail.name
     lo, hi = est.span_hz
-    grid = np.geomspace(lo / 10, hi * 2, 3000)
+    grid = rail.frequency_hz
     fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
-    ax.loglog(grid, np.abs(rail.decoupling_impedance(grid)), color="black", lw=1.6, label="|Z_dec| at the IC pins")
-    ax.loglog(grid, np.abs(rail.supply_impedance(grid)), color="gray", lw=0.9, ls="--", label="|Z| of the supply path")
+    ax.loglog(grid, rail.decoupling_ohm, color="black", lw=1.6, label="|Z_dec| at the IC pins")
+    ax.loglog(grid, rail.supply_ohm, color="gray", lw=0.9, ls="--", label="|Z| of the supply path")
     if rail.target_ohm is not None:
         ax.axhline(rail.target_ohm, color="tab:orange", lw=1.2, label=f"target {rail.target_ohm:g} ohm")
     rows = est.rows

@@ -32,6 +32,7 @@ quasi-peak pulse response); 47 CFR 15.35; FCC KDB 714737 (linear average above
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -40,6 +41,7 @@ import scipy.fft
 __all__ = [
     "Band",
     "BANDS",
+    "Detector",
     "DETECTORS",
     "REACH_RBW",
     "band_index",
@@ -51,11 +53,14 @@ __all__ = [
     "sweep",
 ]
 
-DETECTORS = ("PK", "QP", "AV", "RMS-AV")
 #: Envelope samples per line of the occupied span: the QP balance needs 4 (0.05 dB
 #: against stepping the detector on 1024 samples); PK (refined between samples) and
 #: the AV mean agree with the brute-force receiver within 0.005 dB at 2.
 OVERSAMPLING = {"QP": 4, "other": 2}
+
+#: Threads for each batch of envelope FFTs (-1: all cores).  A process pool's
+#: workers set 1, so that two processes do not fight over the same cores.
+FFT_WORKERS = -1
 
 #: Lines further than this many bandwidths from the tuning frequency are out of
 #: the filter's reach (|H| < 5e-6, -106 dB).
@@ -187,6 +192,93 @@ def _qp_fast(env: np.ndarray, band: Band) -> np.ndarray:
     return v[np.arange(e.shape[0]), pick] * (1 + ratio)
 
 
+def _peak_refined(env: np.ndarray) -> np.ndarray:
+    """Envelope maximum refined between samples by a parabola through the top three samples."""
+    rows = np.arange(env.shape[0])
+    best = np.argmax(env, axis=1)
+    y0 = env[rows, best - 1]
+    y1 = env[rows, best]
+    y2 = env[rows, (best + 1) % env.shape[1]]
+    curvature = y0 - 2 * y1 + y2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = np.where(curvature < 0, 0.5 * (y0 - y2) / curvature, 0.0)
+    return np.maximum(y1, y1 - 0.25 * (y0 - y2) * shift)
+
+
+def _repeats_fast(period_s: float, band: Band) -> bool:
+    """True where the envelope repeats 100 times faster than the meter and discharge time constants.
+
+    The meter then shows the mean of its input and the QP balance is solved
+    exactly from the sorted samples, with no time stepping.
+    """
+    return band.meter_s is None or 100 * period_s < min(band.meter_s, band.qp_discharge_s or np.inf)
+
+
+def _uniform_steps(env: np.ndarray, period_s: float) -> np.ndarray:
+    return np.full(env.shape[1], period_s / env.shape[1])
+
+
+def _nan_rows(env: np.ndarray) -> np.ndarray:
+    return np.full(env.shape[0], np.nan)
+
+
+def _average_periodic(env, period_s, band):
+    if _repeats_fast(period_s, band):
+        return env.mean(axis=1)
+    return _average_stepped(env, _uniform_steps(env, period_s), band)
+
+
+def _average_stepped(env, step_s, band):
+    if band.meter_s is None:
+        return env @ (step_s / step_s.sum())
+    return _meter_steps(env, step_s, band.meter_s).max(axis=1)
+
+
+def _qp_periodic(env, period_s, band):
+    if band.qp_charge_s is None:
+        return _nan_rows(env)
+    return _qp_fast(env, band) if _repeats_fast(period_s, band) else _qp_exact(env, _uniform_steps(env, period_s), band)
+
+
+def _qp_stepped(env, step_s, band):
+    return _nan_rows(env) if band.qp_charge_s is None else _qp_exact(env, step_s, band)
+
+
+@dataclass(frozen=True)
+class Detector:
+    """A detector: its reading of a uniformly sampled periodic envelope and of one held in unequal steps.
+
+    Both take ``env`` (rows x samples, RMS-calibrated: a CW of RMS a is a
+    constant a) and a :class:`Band`, and return one reading per row.
+    """
+
+    name: str
+    periodic: Callable[[np.ndarray, float, Band], np.ndarray]
+    stepped: Callable[[np.ndarray, np.ndarray, Band], np.ndarray]
+    available: Callable[[Band], bool] = lambda band: True
+    meaning: str = ""
+
+
+#: The detectors a limit line may name, by name.
+DETECTORS: dict[str, Detector] = {d.name: d for d in (
+    Detector("PK", lambda env, period, band: _peak_refined(env), lambda env, step, band: env.max(axis=1),
+             meaning="peak: the maximum of the envelope (refined between samples)"),
+    Detector("QP", _qp_periodic, _qp_stepped, available=lambda band: band.qp_charge_s is not None,
+             meaning="quasi-peak: charge/discharge detector and critically damped meter (no QP above 1 GHz)"),
+    Detector("AV", _average_periodic, _average_stepped,
+             meaning="CISPR average: meter-weighted linear average (linear average above 1 GHz)"),
+    Detector("RMS-AV", lambda env, period, band: np.sqrt((env**2).mean(axis=1)),
+             lambda env, step, band: np.sqrt((env**2) @ (step / step.sum())),
+             meaning="RMS of the envelope (the pulse corner-frequency weighting is not modelled)"),
+)}
+
+
+def _detector(name: str) -> Detector:
+    if name not in DETECTORS:
+        raise ValueError(f"unknown detector {name!r}")
+    return DETECTORS[name]
+
+
 def detect_steps(envelope, step_s, band: Band, detectors) -> dict[str, np.ndarray]:
     """Detector readings of a periodic envelope sampled with unequal steps.
 
@@ -207,20 +299,7 @@ def detect_steps(envelope, step_s, band: Band, detectors) -> dict[str, np.ndarra
     """
     env = np.atleast_2d(np.asarray(envelope, dtype=float))
     step = np.asarray(step_s, dtype=float)
-    weight = step / step.sum()
-    out = {}
-    for det in detectors:
-        if det == "PK":
-            out[det] = env.max(axis=1)
-        elif det == "RMS-AV":
-            out[det] = np.sqrt((env**2) @ weight)
-        elif det == "AV":
-            out[det] = env @ weight if band.meter_s is None else _meter_steps(env, step, band.meter_s).max(axis=1)
-        elif det == "QP":
-            out[det] = np.full(env.shape[0], np.nan) if band.qp_charge_s is None else _qp_exact(env, step, band)
-        else:
-            raise ValueError(f"unknown detector {det!r}")
-    return out
+    return {det: _detector(det).stepped(env, step, band) for det in detectors}
 
 
 def detect(envelope, period_s: float, band: Band, detectors) -> dict[str, np.ndarray]:
@@ -230,41 +309,13 @@ def detect(envelope, period_s: float, band: Band, detectors) -> dict[str, np.nda
     constants (a spread-spectrum modulation at tens of kHz) take closed forms:
     the meter then shows the mean of its input, and the QP balance is solved
     exactly from the sorted samples.  Slower envelopes are stepped in time.
+    The peak is refined between samples by a parabola through the top three.
     """
     env = np.atleast_2d(np.asarray(envelope, dtype=float))
-    n = env.shape[1]
-    fast = band.meter_s is None or 100 * period_s < min(band.meter_s, band.qp_discharge_s or np.inf)
-    if not fast:
-        return detect_steps(env, np.full(n, period_s / n), band, detectors)
-    out = {}
-    for det in detectors:
-        if det == "PK":
-            out[det] = env.max(axis=1)
-        elif det == "AV":
-            out[det] = env.mean(axis=1)
-        elif det == "RMS-AV":
-            out[det] = np.sqrt((env**2).mean(axis=1))
-        elif det == "QP":
-            out[det] = np.full(env.shape[0], np.nan) if band.qp_charge_s is None else _qp_fast(env, band)
-        else:
-            raise ValueError(f"unknown detector {det!r}")
-    return out
+    return {det: _detector(det).periodic(env, period_s, band) for det in detectors}
 
 
 # ---------------------------------------------------------------- swept readings
-
-
-def _peak_refined(env: np.ndarray) -> np.ndarray:
-    """Envelope maximum refined between samples by a parabola through the top three samples."""
-    rows = np.arange(env.shape[0])
-    best = np.argmax(env, axis=1)
-    y0 = env[rows, best - 1]
-    y1 = env[rows, best]
-    y2 = env[rows, (best + 1) % env.shape[1]]
-    curvature = y0 - 2 * y1 + y2
-    with np.errstate(invalid="ignore", divide="ignore"):
-        shift = np.where(curvature < 0, 0.5 * (y0 - y2) / curvature, 0.0)
-    return np.maximum(y1, y1 - 0.25 * (y0 - y2) * shift)
 
 
 def sweep(line_hz, line_amplitude, grid_hz: float, tuning_hz, detectors, max_cells: int = 1 << 21):
@@ -332,17 +383,16 @@ def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, band, detectors
     present = col[None, :] < count[:, None]
     idx = np.where(present, lo[:, None] + col[None, :], lo[:, None])
     freq = line_hz[idx]
-    if width == 1:  # a single line: a CW reading
+    if width == 1:  # a single line: a CW reads its RMS value on every detector the band has
         level = np.abs(amp[idx[:, 0]]) * filter_response(freq[:, 0] - tuning, band.rbw_hz)
-        return {det: (np.full(level.shape, np.nan) if det == "QP" and band.qp_charge_s is None else level)
-                for det in detectors}
+        return {det: level if DETECTORS[det].available(band) else np.full(level.shape, np.nan) for det in detectors}
     # offsets need float64 (lines at GHz, offsets at kHz); the weights and the envelope do not
     gain = filter_response(((freq - tuning[:, None]) / band.rbw_hz).astype(np.float32), 1.0)
     weights = np.where(present, amp[idx].astype(np.complex64) * gain, np.complex64(0))
     bins = np.rint((freq - freq[:, :1]) / grid_hz).astype(np.int64)
     span = int(bins.max()) + 1
     # 4x oversampled envelope; the peak is refined between samples (_peak_refined)
-    qp = "QP" in detectors and band.qp_charge_s is not None
+    qp = "QP" in detectors and DETECTORS["QP"].available(band)
     n_fft = scipy.fft.next_fast_len(max(32, OVERSAMPLING["QP" if qp else "other"] * span))
     # padding cells go to an extra column that is dropped before the transform
     bins = np.where(present, bins, n_fft)
@@ -358,9 +408,6 @@ def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, band, detectors
         added.real = np.bincount(flat, weights[clash].real.ravel(), cells)
         added.imag = np.bincount(flat, weights[clash].imag.ravel(), cells)
         spectrum[clash] = added.reshape(clash.size, n_fft + 1)
-    env = np.abs(scipy.fft.ifft(spectrum[:, :n_fft], axis=1, workers=-1, overwrite_x=True))
+    env = np.abs(scipy.fft.ifft(spectrum[:, :n_fft], axis=1, workers=FFT_WORKERS, overwrite_x=True))
     env *= n_fft
-    values = detect(env, 1.0 / grid_hz, band, detectors)
-    if "PK" in values:
-        values["PK"] = _peak_refined(env)
-    return values
+    return detect(env, 1.0 / grid_hz, band, detectors)

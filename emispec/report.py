@@ -1,9 +1,12 @@
-"""Output edge: JSON (SPEC 3.5), CSV and Markdown tables, written atomically.
+"""Output edge: the JSON result, CSV and Markdown tables, the test plan, variants and the HTML report.
 
 Numbers leave the core as dB arrays with NaN for "does not exist"; here NaN
-becomes JSON ``null`` and the word ``null`` in tables.  Every file goes to a
-temporary name in its destination folder and is renamed into place, so an
-interrupted or failed run never leaves a half-written file over a good one.
+becomes JSON ``null`` and the word ``null`` in tables.  Which columns each
+output has comes from :mod:`emispec.columns`; what the plots draw comes from
+:mod:`emispec.pipeline` (swept spectrum, envelopes, rail views), so nothing
+here computes physics.  Every file goes to a temporary name in its destination
+folder and is renamed into place, so an interrupted or failed run never leaves
+a half-written file over a good one.
 """
 
 from __future__ import annotations
@@ -15,17 +18,22 @@ import json
 import math
 import os
 import tempfile
+from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
 
 from . import __version__
-from .decoupling import rail_summary
-from .explore import PLAN_COLUMNS
-from .margin import FLAGS, Estimate
+from .columns import column_values, columns_for, header_cells, json_row, text_cells, verdict_text
+from .flags import names as flag_names
+from .pipeline import Estimate, RailView, envelope_traces, rail_view, swept_spectrum
+from .plan import PLAN_COLUMNS
+from .trace import Trace
 
 __all__ = [
-    "CAUTION", "SCHEMA", "result_dict", "row_dict", "csv_text", "swept_csv_text", "markdown_text", "atomic_write",
-    "write_outputs", "plan_csv_text", "plan_markdown_text", "variants_rows", "variants_csv_text", "html_text",
+    "CAUTION", "SCHEMA", "Views", "views_of", "result_dict", "row_dict", "csv_text", "swept_csv_text",
+    "markdown_text", "atomic_write", "write_outputs", "plan_csv_text", "plan_markdown_text", "variants_rows",
+    "variants_csv_text", "html_text",
 ]
 
 SCHEMA = "emispec.result/1"
@@ -43,44 +51,39 @@ def _num(x, digits: int = 3):
     return round(x, digits) if math.isfinite(x) else None
 
 
+@dataclass(frozen=True)
+class Views:
+    """What the plots and the HTML report draw of an estimate, computed once by the pipeline."""
+
+    swept: dict[str, Trace]
+    envelopes: dict[str, Trace]
+    rails: dict[str, RailView]
+
+
+def views_of(est: Estimate) -> Views:
+    """The swept spectrum, the sources' envelopes on the plot grid, and every rail's view."""
+    lo, hi = est.span_hz
+    return Views(swept_spectrum(est), envelope_traces(est, np.geomspace(lo, hi, 2000)),
+                 {name: rail_view(est, name) for name in est.board.rails})
+
+
 def row_dict(est: Estimate, i: int) -> dict:
-    """One row of SPEC 3.5."""
-    r = est.rows
-    detectors = est.board.limit.detectors
-    limits = {d: _num(r.limits[d][i]) for d in detectors if math.isfinite(r.limits[d][i])}
-    row = {
-        "source": str(r.source[i]),
-        "harmonic": int(r.harmonic[i]),
-        "frequency_hz": float(r.frequency_hz[i]),
-        "line_dbuv": _num(r.line_dbuv[i]),
-        "line_dbua": _num(r.line_dbua[i]),
-        "band_hz": [float(r.band_lo_hz[i]), float(r.band_hi_hz[i])] if r.spread[i] else None,
-        "paths": {
-            p: {d: _num(r.path_readings[p][d][i]) for d in detectors}
-            for p in est.source_paths[str(r.source[i])]
-        },
-        "readings": {d: _num(r.readings[d][i]) for d in detectors},
-        "spread_reduction_db": {d: _num(r.spread_reduction_db[d][i]) for d in detectors} if r.spread[i] else None,
-        "limits": limits,
-        "margin_db": {d: _num(r.margins[d][i]) for d in limits},
-        "worst_margin_db": _num(r.worst_margin_db[i]),
-        "flags": r.flag_list(i),
-    }
-    if est.board.rails:
-        row["decoupling_impedance_ohm"] = _num(r.decoupling_impedance_ohm[i], 6)
-        row["required_impedance_ohm"] = _num(r.required_impedance_ohm[i], 6)
-        row["suppression_db"] = _num(r.suppression_db[i])
-    return row
+    """One row of the JSON result."""
+    columns = columns_for(est, "json")
+    return json_row(est, columns, column_values(est, columns), i)
 
 
 def result_dict(est: Estimate) -> dict:
-    """The whole result as SPEC 3.5 (schema ``emispec.result/1``)."""
+    """The whole result (schema ``emispec.result/1``)."""
     board, limit = est.board, est.board.limit
+    columns = columns_for(est, "json")
+    values = column_values(est, columns)
+    verdict = est.outcome
     worst = None
-    if est.worst_index is not None:
-        row = row_dict(est, est.worst_index)
-        worst = {k: row[k] for k in ("source", "harmonic", "frequency_hz", "worst_margin_db")}
-        worst["detector"] = est.rows.worst_detector[est.worst_index]
+    if verdict.worst is not None:
+        w = verdict.worst
+        worst = {"source": w.source, "harmonic": w.harmonic, "frequency_hz": w.frequency_hz,
+                 "worst_margin_db": _num(w.margin_db), "detector": w.detector}
     return {
         "schema": SCHEMA,
         "emispec_version": __version__,
@@ -96,51 +99,25 @@ def result_dict(est: Estimate) -> dict:
             "detectors": list(limit.detectors),
         },
         "guard_band_db": board.guard_band_db,
-        "rails": [rail_summary(rail, est.span_hz) for rail in board.rails.values()],
+        "rails": [rail_view(est, name).summary for name in board.rails],
         "span_hz": [est.span_hz[0], est.span_hz[1]],
-        "rows": [row_dict(est, i) for i in range(len(est.rows))],
+        "rows": [json_row(est, columns, values, i) for i in range(len(est.rows))],
         "summary": {
             "rows": len(est.rows),
-            "over_limit": est.over_limit,
-            "within_guard_band": est.within_guard_band,
+            "over_limit": verdict.over_limit,
+            "within_guard_band": verdict.within_guard_band,
             "worst": worst,
-            "verdict": est.verdict(),
+            "verdict": verdict_text(verdict),
         },
     }
 
 
-def _cell(x) -> str:
-    return "null" if x is None or (isinstance(x, float) and not math.isfinite(x)) else f"{x:.2f}"
-
-
-RAIL_COLUMNS = ("decoupling_impedance_ohm", "required_impedance_ohm", "suppression_db")
-
-
-def _table_columns(est: Estimate) -> list[str]:
-    dets = est.board.limit.detectors
-    return (
-        ["source", "harmonic", "frequency_hz", "band_lo_hz", "band_hi_hz", "line_dbuv", "line_dbua"]
-        + [f"{kind}_{d}" for d in dets for kind in ("reading", "limit", "margin", "ssc_reduction")]
-        + (list(RAIL_COLUMNS) if est.board.rails else [])
-        + ["worst_margin_db", "flags"]
-    )
-
-
-def _impedance_cell(x) -> str:
-    return "null" if not math.isfinite(x) else f"{x:.4g}"
-
-
-def _table_rows(est: Estimate, count: int | None = None):
-    r, dets = est.rows, est.board.limit.detectors
-    for i in range(len(r) if count is None else min(count, len(r))):
-        yield (
-            [str(r.source[i]), str(int(r.harmonic[i])), f"{r.frequency_hz[i]:.10g}", f"{r.band_lo_hz[i]:.10g}",
-             f"{r.band_hi_hz[i]:.10g}", _cell(r.line_dbuv[i]), _cell(r.line_dbua[i])]
-            + [_cell(col[d][i]) for d in dets for col in (r.readings, r.limits, r.margins, r.spread_reduction_db)]
-            + ([_impedance_cell(r.decoupling_impedance_ohm[i]), _impedance_cell(r.required_impedance_ohm[i]),
-                _cell(r.suppression_db[i])] if est.board.rails else [])
-            + [_cell(r.worst_margin_db[i]), " ".join(r.flag_list(i))]
-        )
+def _table(est: Estimate, output: str, count: int | None = None) -> tuple[list[str], list[list[str]]]:
+    """Header and row cells of the margin table for ``output`` (csv, md, html, term)."""
+    columns = columns_for(est, output)
+    values = column_values(est, columns)
+    rows = len(est.rows) if count is None else min(count, len(est.rows))
+    return header_cells(est, columns, output), [text_cells(est, columns, values, i, output) for i in range(rows)]
 
 
 def csv_text(est: Estimate) -> str:
@@ -148,23 +125,29 @@ def csv_text(est: Estimate) -> str:
     buffer = io.StringIO()
     buffer.write(f"# {CAUTION}\n# levels in {est.board.limit.unit}; limit {est.board.limit.name}\n")
     writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(_table_columns(est))
-    writer.writerows(_table_rows(est))
+    head, rows = _table(est, "csv")
+    writer.writerow(head)
+    writer.writerows(rows)
     return buffer.getvalue()
 
 
-def swept_csv_text(est: Estimate, frequency_hz, readings: dict) -> str:
+def swept_csv_text(est: Estimate, swept: dict[str, Trace]) -> str:
     """The swept spectrum: frequency, detector readings and the limit's lines, in the limit's unit."""
+    frequency_hz = next(iter(swept.values())).frequency_hz
     limits = est.board.limit.levels(frequency_hz)
     buffer = io.StringIO()
     buffer.write(f"# {CAUTION}\n# swept receiver readings in {est.board.limit.unit}, all sources together; "
                  "steps of RBW/2 plus every unmodulated line\n")
     writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(["frequency_hz", *readings, *(f"limit_{d}" for d in limits)])
+    writer.writerow(["frequency_hz", *swept, *(f"limit_{d}" for d in limits)])
     for k, f in enumerate(frequency_hz):
-        writer.writerow([f"{f:.10g}", *(_cell(v[k]) for v in readings.values()),
+        writer.writerow([f"{f:.10g}", *(_cell(t.level_db[k]) for t in swept.values()),
                          *(_cell(v[k]) for v in limits.values())])
     return buffer.getvalue()
+
+
+def _cell(x) -> str:
+    return "null" if x is None or (isinstance(x, float) and not math.isfinite(x)) else f"{x:.2f}"
 
 
 def _md_escape(text: str) -> str:
@@ -174,7 +157,7 @@ def _md_escape(text: str) -> str:
 def markdown_text(est: Estimate, count: int = 50) -> str:
     """A readable report: verdict, limit, and the worst rows."""
     b, lim = est.board, est.board.limit
-    head = _table_columns(est)
+    head, rows = _table(est, "md", count)
     lines = [
         f"# {_md_escape(b.title)}",
         "",
@@ -194,8 +177,8 @@ def markdown_text(est: Estimate, count: int = 50) -> str:
         "| " + " | ".join(head) + " |",
         "|" + "---|" * len(head),
     ]
-    lines += ["| " + " | ".join(_md_escape(c) for c in row) + " |" for row in _table_rows(est, count)]
-    flags = ", ".join(FLAGS)
+    lines += ["| " + " | ".join(_md_escape(c) for c in row) + " |" for row in rows]
+    flags = ", ".join(flag_names())
     lines += ["", f"Flags: {flags}. Levels in {lim.unit}; `null` marks a spectral null or a missing value.", ""]
     return "\n".join(lines)
 
@@ -234,31 +217,30 @@ def json_text(est: Estimate) -> str:
     return json.dumps(result_dict(est), indent=1, allow_nan=False) + "\n"
 
 
-def write_outputs(est: Estimate, out_dir: Path, stem: str = "estimate") -> list[Path]:
+def write_outputs(est: Estimate, out_dir: Path, stem: str = "estimate", views: Views | None = None) -> list[Path]:
     """Write CSV, Markdown, JSON, the swept spectrum and the plots (spectrum, swept, rails) into ``out_dir``.
 
     All files are first rendered into a temporary folder inside ``out_dir``
     and then renamed into place, so a failure leaves nothing half-written.
     """
-    from .margin import swept_spectrum
     from .plot import png_bytes, rail_figure, spectrum_figure, swept_figure  # matplotlib is slow to import
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(dir=out_dir, prefix=".emispec-"))
     try:
-        swept_hz, swept = swept_spectrum(est)
+        views = views or views_of(est)
         contents = {
             f"{stem}.json": json_text(est),
             f"{stem}.csv": csv_text(est),
             f"{stem}.md": markdown_text(est),
-            f"{stem}-swept.csv": swept_csv_text(est, swept_hz, swept),
+            f"{stem}-swept.csv": swept_csv_text(est, views.swept),
         }
         for name, text in contents.items():
             (staging / name).write_text(text, encoding="utf-8")
-        figures = [(f"{stem}-spectrum.png", lambda: spectrum_figure(est)),
-                   (f"{stem}-swept.png", lambda: swept_figure(est, swept_hz, swept))]
-        figures += [(f"{stem}-rail-{file_part(name)}.png", lambda name=name: rail_figure(est, name))
+        figures = [(f"{stem}-spectrum.png", lambda: spectrum_figure(est, views.envelopes)),
+                   (f"{stem}-swept.png", lambda: swept_figure(est, views.swept))]
+        figures += [(f"{stem}-rail-{file_part(name)}.png", lambda name=name: rail_figure(est, views.rails[name]))
                     for name in est.board.rails]
         for name, draw in figures:
             (staging / name).write_bytes(png_bytes(draw()))
@@ -354,6 +336,8 @@ ASSUMPTIONS = (
     "Paths of one source add in power; sources add in power unless they share a reference (then in amplitude).",
 )
 
+_VERDICT_CLASS = {"fails": "FAILS", "marginal": "MARGINAL", "meets": "MEETS", "no-data": "NO"}
+
 _CSS = """
 body{font-family:system-ui,sans-serif;margin:2em;max-width:1200px;color:#222}
 h1{font-size:1.5em} h2{font-size:1.2em;margin-top:2em;border-bottom:1px solid #ccc}
@@ -369,18 +353,14 @@ figure{margin:1em 0} svg{max-width:100%;height:auto}
 
 def _html_rows_table(est: Estimate, count: int) -> str:
     r = est.rows
-    dets = est.board.limit.detectors
-    head = ["source", "n", "MHz", *(f"{d} reading" for d in dets), *(f"{d} limit" for d in dets),
-            *(f"{d} margin" for d in dets), "worst", "flags"]
+    head, rows = _table(est, "html", count)
+    text_columns = {0, len(head) - 1}  # the source and the flags read left-aligned
     out = ["<table><thead><tr>" + "".join(f"<th>{html.escape(h)}</th>" for h in head) + "</tr></thead><tbody>"]
-    for i in range(min(count, len(r))):
+    for i, cells in enumerate(rows):
         cls = "over" if r.flags["over-limit"][i] else "guard" if r.flags["within-guard-band"][i] else ""
-        cells = [f'<td class="text">{html.escape(str(r.source[i]))}</td>', f"<td>{r.harmonic[i]}</td>",
-                 f"<td>{r.frequency_hz[i] / 1e6:.6g}</td>"]
-        cells += [f"<td>{_cell(col[d][i])}</td>" for col in (r.readings, r.limits, r.margins) for d in dets]
-        cells += [f"<td>{_cell(r.worst_margin_db[i])}</td>",
-                  f'<td class="text">{html.escape(" ".join(r.flag_list(i)))}</td>']
-        out.append(f'<tr class="{cls}">' + "".join(cells) + "</tr>")
+        out.append(f'<tr class="{cls}">' + "".join(
+            f'<td class="text">{html.escape(c)}</td>' if k in text_columns else f"<td>{html.escape(c)}</td>"
+            for k, c in enumerate(cells)) + "</tr>")
     return "".join(out) + "</tbody></table>"
 
 
@@ -398,26 +378,27 @@ def _html_dict_table(rows: list[dict], columns) -> str:
     return "".join(out) + "</tbody></table>"
 
 
-def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 60) -> str:
+def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 60, views: Views | None = None) -> str:
     """One self-contained HTML report: inline SVG plots, no scripts, no external assets.
 
     User text (titles, names, notes) is escaped.
     """
-    from .margin import swept_spectrum
     from .plot import rail_figure, spectrum_figure, svg_text, swept_figure, variants_figure
 
     b, lim = est.board, est.board.limit
-    verdict = est.verdict()
-    swept_hz, swept = swept_spectrum(est)
-    figures = [("Harmonic readings against the limit", spectrum_figure(est)),
-               ("Swept receiver readings (all sources)", swept_figure(est, swept_hz, swept))]
-    figures += [(f"Rail {name}: |Z_dec| and what each harmonic needs", rail_figure(est, name)) for name in b.rails]
+    outcome = est.outcome
+    verdict = verdict_text(outcome)
+    views = views or views_of(est)
+    figures = [("Harmonic readings against the limit", spectrum_figure(est, views.envelopes)),
+               ("Swept receiver readings (all sources)", swept_figure(est, views.swept))]
+    figures += [(f"Rail {name}: |Z_dec| and what each harmonic needs", rail_figure(est, views.rails[name]))
+                for name in b.rails]
     parts = [
         "<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
         f"<title>{html.escape(b.title)} - emispec estimate</title>", f"<style>{_CSS}</style></head><body>",
         f"<h1>{html.escape(b.title)}</h1>",
         f'<p class="caution">{html.escape(CAUTION)}</p>',
-        f'<p class="verdict {verdict.split(":")[0].split()[0]}">{html.escape(verdict)}</p>',
+        f'<p class="verdict {_VERDICT_CLASS[outcome.kind]}">{html.escape(verdict)}</p>',
         "<h2>Board and assumptions</h2><ul>",
         f"<li>Board file: <code>{html.escape(b.file)}</code>, sha256 <code>{html.escape(b.sha256)}</code></li>",
         f"<li>Limit: {html.escape(lim.title)} (<code>{html.escape(lim.name)}</code>), {html.escape(lim.measurement)}"

@@ -38,6 +38,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .schema import Key, TableReader
+
 __all__ = ["MODES", "PROFILES", "Spread", "profile_phase", "harmonic_lines", "occupied_band_hz"]
 
 MODES = ("down", "centre", "up")
@@ -73,6 +75,22 @@ class Spread:
             raise ValueError(f"profile must be one of {PROFILES}")
         if not (0 < self.deviation <= 0.1 and self.rate_hz > 0):
             raise ValueError("deviation must be in (0, 10 %] and rate > 0 Hz")
+
+    KEYS = (
+        Key("mode", "choice", choices=MODES),
+        Key("deviation", "ratio", low=0.0, high=0.1),
+        Key("rate", "frequency", low=0.0),
+        Key("profile", "choice", default="triangle", choices=PROFILES),
+    )
+
+    @classmethod
+    def from_table(cls, r: TableReader, frequency_hz: float) -> Spread:
+        """Read a ``spread = {...}`` table of a source at ``frequency_hz`` (the rate must stay below f0 / 100)."""
+        for key in ("mode", "deviation", "rate"):
+            if not r.has(key):
+                raise r.error(key, "missing; a spread needs mode, deviation and rate (profile defaults to triangle)")
+        return cls(mode=r.get("mode"), deviation=r.get("deviation"), rate_hz=r.get("rate", high=frequency_hz / 100),
+                   profile=r.get("profile"))
 
     @property
     def centre_factor(self) -> float:

@@ -15,6 +15,7 @@ from emispec.coupling import (
     loop_field,
     near_field,
 )
+from emispec.trace import Trace
 from emispec.units import db_micro
 
 
@@ -67,7 +68,7 @@ def test_cable_without_ground_is_a_hertzian_dipole():
 
 
 def test_electrically_long_cable_is_capped_at_half_a_wavelength():
-    # Source: Paul 2006 sec. 8.1.3 (valid for electrically short wires); lambda/2 cap per SPEC 2.6
+    # Source: Paul 2006 sec. 8.1.3 (valid for electrically short wires); lambda/2 cap as README states
     f = 300e6  # lambda = 1 m
     assert cable_field(f, 1e-6, 5.0, 3.0) == pytest.approx(cable_field(f, 1e-6, 0.5 * constants.c / f, 3.0))
     assert cable_field(10e6, 1e-6, 5.0, 3.0) > cable_field(10e6, 1e-6, 2.0, 3.0)
@@ -83,7 +84,8 @@ def test_inverse_distance_scaling():
 
 def test_transfer_table_measured_at_another_distance_is_referred_to_the_limit_distance():
     # Source: 47 CFR 15.31(f)(1) inverse-distance extrapolation
-    path = TransferPath("probe", "voltage", np.array([1e6, 1e9]), np.array([-20.0, -20.0]), distance_m=1.0)
+    path = TransferPath("probe", "voltage", Trace(np.array([1e6, 1e9]), np.array([-20.0, -20.0]), outside="hold"),
+                        distance_m=1.0)
     at_3m = path.reading(np.array([1e8]), {"voltage": np.array([1.0])}, 3.0)
     assert db_micro(at_3m)[0] == pytest.approx(120 - 20 - 20 * np.log10(3.0))
 
@@ -96,7 +98,7 @@ def test_near_field_boundary_is_lambda_over_two_pi():
 
 
 def test_transfer_table_interpolates_linearly_in_db_over_log_f():
-    # Source: SPEC 2.6 rule, checked against numpy.interp on log10 frequencies computed by hand
+    # Source: the README's interpolation rule, checked against numpy.interp on log10 frequencies computed by hand
     table_hz, table_db = np.array([1e6, 100e6]), np.array([-40.0, 0.0])
     assert interpolate_db_log_f(10e6, table_hz, table_db) == pytest.approx(-20.0)
     assert interpolate_db_log_f(np.sqrt(10) * 1e6, table_hz, table_db) == pytest.approx(-30.0)
@@ -114,7 +116,7 @@ def test_paths_use_the_right_source_quantity():
     assert harness.input == "escape" and harness.reading(f, source, 3.0) == pytest.approx(
         cable_field(f, escape, 1.0, 3.0))
     assert harness.termination(f)[0] == 150.0  # CISPR 16-1-2 / IEC 61000-4-6 common-mode impedance
-    current = TransferPath("t", "current", np.array([1e6, 1e9]), np.array([6.0, 6.0]))
+    current = TransferPath("t", "current", Trace(np.array([1e6, 1e9]), np.array([6.0, 6.0]), outside="hold"))
     assert current.reading(f, source, None) == pytest.approx(i * 10 ** (6 / 20))
     mains = ConductedPath("m")
     assert mains.reading(f, source, None) == pytest.approx(escape * np.abs(mains.termination(f)))

@@ -5,8 +5,9 @@ import pytest
 
 from conftest import REPO
 from emispec.board import board_from_mapping, load_board, read_board_data
-from emispec.explore import plan_rows, scope_of, set_value, solve, vary
-from emispec.margin import estimate
+from emispec.explore import solve, vary
+from emispec.parameters import Template, scope_of, set_value
+from emispec.pipeline import estimate
 
 DEMO = REPO / "samples" / "beehive-gateway.toml"
 
@@ -27,9 +28,8 @@ def test_set_value_by_name_and_index(demo_data):
 
 
 def test_variants_reproduce_single_estimates_exactly(demo_data, write_board):
-    data, file, base, _ = demo_data
     values = ["0.3 ns", "1 ns"]
-    variants = vary(data, file, base, {"clock[sdram_clk].rise_time": values, "path[sdram_loop].area": ["0.2 cm2"]})
+    variants = vary(Template.load(DEMO), {"clock[sdram_clk].rise_time": values, "path[sdram_loop].area": ["0.2 cm2"]})
     assert len(variants) == 2
     text = DEMO.read_text()
     for variant, value in zip(variants, values):
@@ -43,10 +43,10 @@ def test_variants_reproduce_single_estimates_exactly(demo_data, write_board):
 
 
 def test_zip_and_cross(demo_data):
-    data, file, base, _ = demo_data
+    template = Template.load(DEMO)
     changes = {"clock[sdram_clk].rise_time": ["0.3 ns", "1 ns"], "path[sdram_loop].area": ["0.2 cm2", "0.4 cm2"]}
-    assert len(vary(data, file, base, changes, "cross")) == 4
-    zipped = vary(data, file, base, changes, "zip")
+    assert len(vary(template, changes, "cross")) == 4
+    zipped = vary(template, changes, "zip")
     assert [v.settings for v in zipped] == [(("clock[sdram_clk].rise_time", "0.3 ns"), ("path[sdram_loop].area", "0.2 cm2")),
                                             (("clock[sdram_clk].rise_time", "1 ns"), ("path[sdram_loop].area", "0.4 cm2"))]
 
@@ -115,8 +115,9 @@ ratio = "-40 dB"
     ],
 )
 def test_solution_just_keeps_the_guard_band(write_board, key, low, high, scope):
-    data, file, base, _ = read_board_data(write_board(SMALL_BOARD))
-    solution = solve(data, file, base, key, low, high, scope=scope)
+    path = write_board(SMALL_BOARD)
+    data, file, base, _ = read_board_data(path)
+    solution = solve(Template.load(path), key, low, high, scope=scope)
     assert solution.value is not None, (solution.note, solution.scanned)
     value = f"{solution.value!r} {solution.unit}".strip()
     board = board_from_mapping(set_value(data, key, value, file), file, base)
@@ -125,8 +126,9 @@ def test_solution_just_keeps_the_guard_band(write_board, key, low, high, scope):
 
 
 def test_capacitor_count_solves_on_integers(write_board):
-    data, file, base, _ = read_board_data(write_board(SMALL_BOARD))
-    solution = solve(data, file, base, "rail[r].part[0].count", "1", "60", scope="core")
+    path = write_board(SMALL_BOARD)
+    data, file, base, _ = read_board_data(path)
+    solution = solve(Template.load(path), "rail[r].part[0].count", "1", "60", scope="core")
     assert solution.value is not None and float(solution.value).is_integer(), (solution.note, solution.scanned)
     n = int(solution.value)
 
@@ -167,21 +169,7 @@ area = "1 cm2"
 def test_non_monotone_rise_time_is_detected(write_board):
     # Source: Paul 2006 sec. 3.2: the 5th harmonic of a 50 MHz trapezoid vanishes at tr = T/5 = 4 ns, so its
     # level is not monotone in the rise time
-    data, file, base, _ = read_board_data(write_board(NULL_BOARD))
-    solution = solve(data, file, base, "clock[c].rise_time", "0.5 ns", "6 ns", points=25)
+    solution = solve(Template.load(write_board(NULL_BOARD)), "clock[c].rise_time", "0.5 ns", "6 ns", points=25)
     assert not solution.monotone
     assert "not monotone" in solution.note
     assert len(solution.crossings) >= 2
-
-
-def test_plan_lists_rows_near_the_limit_worst_first():
-    est = estimate(load_board(DEMO))
-    plan = plan_rows(est)
-    margins = [row["margin_db"] for row in plan]
-    assert margins == sorted(margins) and max(margins) < est.board.guard_band_db
-    assert len(plan) == est.over_limit + est.within_guard_band
-    spread = [row for row in plan if row["source"] == "sdram_clk"]
-    assert spread and all(row["band_hi_hz"] > row["band_lo_hz"] and "peak scan" in row["note"] for row in spread)
-    # Source: CISPR 16-1-1 band C/D: 120 kHz
-    assert all(row["rbw_hz"] == 120e3 and row["cispr_band"] == "C/D" for row in plan)
-    assert len(plan_rows(est, everything=True)) == np.isfinite(est.rows.worst_margin_db).sum()

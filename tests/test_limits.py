@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from conftest import DATA
-from emispec.limits import LimitError, LimitLine, bundled_limits, load_limit, upper_frequency_hz
+from emispec.limits import LimitError, bundled_limits, limit_line, load_limit, upper_frequency_hz
 
 
 def reference_points():
@@ -66,10 +66,10 @@ def test_fcc_peak_line_is_average_plus_20_db():
 
 
 def test_step_takes_the_lower_level_at_the_boundary_and_nan_outside():
-    line = LimitLine("QP", np.array([30e6, 230e6, 230e6, 1e9]), np.array([30.0, 30.0, 37.0, 37.0]))
+    line = limit_line("QP", np.array([30e6, 230e6, 230e6, 1e9]), np.array([30.0, 30.0, 37.0, 37.0]))
     levels = line.level(np.array([29e6, 30e6, 229.9e6, 230e6, 230.1e6, 1e9, 1.1e9]))
     np.testing.assert_allclose(levels, [np.nan, 30, 30, 30, 37, 37, np.nan])
-    rising = LimitLine("QP", np.array([1e6, 2e6, 2e6, 3e6]), np.array([50.0, 50.0, 40.0, 40.0]))
+    rising = limit_line("QP", np.array([1e6, 2e6, 2e6, 3e6]), np.array([50.0, 50.0, 40.0, 40.0]))
     assert rising.level(2e6)[0] == 40.0
 
 

@@ -2,13 +2,14 @@ import numpy as np
 
 from conftest import REPO
 from emispec.board import load_board
-from emispec.margin import estimate
+from emispec.pipeline import estimate
 from emispec.plot import spectrum_figure
+from emispec.report import views_of
 
 
 def test_spectrum_plot_has_limits_guard_band_sources_and_marks():
     est = estimate(load_board(REPO / "samples" / "beehive-gateway.toml"))
-    fig = spectrum_figure(est)
+    fig = spectrum_figure(est, views_of(est).envelopes)
     ax = fig.axes[0]
     labels = [line.get_label() for line in ax.get_lines()]
     assert "limit QP" in labels and "limit QP - 6 dB guard band" in labels
@@ -27,21 +28,22 @@ def test_spectrum_plot_has_limits_guard_band_sources_and_marks():
 
 
 def test_swept_plot_has_each_detector_and_the_limit():
-    from emispec.margin import swept_spectrum
+    from emispec.pipeline import swept_spectrum
     from emispec.plot import swept_figure
 
     est = estimate(load_board(REPO / "samples" / "beehive-gateway.toml"))
-    freq, readings = swept_spectrum(est)
+    swept = swept_spectrum(est)
+    freq, readings = swept["PK"].frequency_hz, {d: trace.level_db for d, trace in swept.items()}
     assert set(readings) == {"PK", "QP", "AV"}
     assert np.all(np.diff(freq) > 0) and freq[0] == est.span_hz[0] and freq[-1] == est.span_hz[1]
     # every unmodulated line is tuned onto exactly
-    mcu = [s for s in est.sources if s.name == "mcu_clk"][0]
+    mcu = [s for s in est.lines if s.name == "mcu_clk"][0]
     assert np.isin(mcu.line_hz[(mcu.line_hz >= 30e6) & (mcu.line_hz <= 1e9)], freq).all()
     # peak >= quasi-peak >= average wherever something is read (detector ordering for any envelope)
     seen = np.isfinite(readings["PK"]) & (readings["PK"] > -50)
     assert np.all(readings["PK"][seen] >= readings["QP"][seen] - 1e-6)
     assert np.all(readings["QP"][seen] >= readings["AV"][seen] - 1e-6)
-    fig = swept_figure(est, freq, readings)
+    fig = swept_figure(est, swept)
     labels = [line.get_label() for line in fig.axes[0].get_lines()]
     assert {"swept PK", "swept QP", "swept AV", "limit QP"} <= set(labels)
     import matplotlib.pyplot as plt

@@ -7,7 +7,7 @@ import pytest
 from conftest import REPO
 from emispec import report
 from emispec.board import load_board
-from emispec.margin import estimate
+from emispec.pipeline import estimate
 from emispec.report import atomic_write, csv_text, markdown_text, result_dict
 
 

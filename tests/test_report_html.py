@@ -7,10 +7,12 @@ import subprocess
 import pytest
 
 from conftest import REPO
-from emispec.board import load_board, read_board_data
+from emispec.board import load_board
 from emispec.cli import app
-from emispec.explore import plan_rows, vary
-from emispec.margin import estimate
+from emispec.explore import vary
+from emispec.parameters import Template
+from emispec.pipeline import estimate
+from emispec.plan import plan_rows
 from emispec.report import html_text
 
 DEMO = REPO / "samples" / "beehive-gateway.toml"
@@ -41,8 +43,7 @@ def evil_report(tmp_path_factory):
     board_file = folder / "evil.toml"
     board_file.write_text(text)
     est = estimate(load_board(board_file))
-    data, file, base, _ = read_board_data(board_file)
-    variants = vary(data, file, base, {"clock[sdram_clk].rise_time": ["0.3 ns", "1 ns"]})
+    variants = vary(Template.load(board_file), {"clock[sdram_clk].rise_time": ["0.3 ns", "1 ns"]})
     page = folder / "report.html"
     page.write_text(html_text(est, plan_rows(est), variants), encoding="utf-8")
     return page, est

@@ -24,7 +24,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/ for the b
 from bruteforce import peak_and_average  # noqa: E402
 
 from emispec.board import load_board  # noqa: E402
-from emispec.margin import estimate, swept_spectrum  # noqa: E402
+from emispec.pipeline import estimate, swept_spectrum  # noqa: E402
 from emispec.receiver import resolution_bandwidth_hz, sweep  # noqa: E402
 from emispec.report import json_text  # noqa: E402
 from emispec.spread import Spread, harmonic_lines, occupied_band_hz  # noqa: E402
@@ -107,10 +107,11 @@ def board_benchmark() -> None:
             return result, swept_spectrum(result)
 
         before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-        result, (swept_hz, _) = run()
+        result, swept = run()
+        swept_hz = next(iter(swept.values())).frequency_hz
         best, median = best_of(run, 3)
         after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-        lines = sum(s.line_hz.size for s in result.sources)
+        lines = sum(s.line_hz.size for s in result.lines)
         print(f"8 clocks (3 spread) to {result.span_hz[1] / 1e9:g} GHz: {len(result.rows)} rows, {lines} lines, "
               f"{swept_hz.size} swept points; estimate + swept PK/QP/AV best {best:.2f} s, median {median:.2f} s "
               "(goal < 2 s)")
@@ -203,17 +204,18 @@ def variants_benchmark() -> None:
     from rich.console import Console
     from rich.progress import Progress
 
-    from emispec.board import read_board_data
+    from emispec.ensemble import process_pool
     from emispec.explore import vary
+    from emispec.parameters import Template
 
     with tempfile.TemporaryDirectory() as tmp:
-        data, file, base, _ = read_board_data(write_board(tmp))
+        template = Template.load(write_board(tmp))
         changes = {"clock[clk6].rise_time": [f"{0.3 + 0.1 * k:.1f} ns" for k in range(10)],
                    "clock[clk2].spread.deviation": [f"{0.1 + 0.1 * k:.1f} %" for k in range(10)]}
         start = time.perf_counter()
-        with Progress(console=Console(stderr=True), transient=True) as progress:
+        with Progress(console=Console(stderr=True), transient=True) as progress, process_pool() as pool:
             task = progress.add_task("100 variants", total=100)
-            variants = vary(data, file, base, changes, progress=lambda: progress.advance(task))
+            variants = vary(template, changes, progress=lambda count: progress.advance(task, count), executor=pool)
         elapsed = time.perf_counter() - start
     print(f"100 variants of the 8-clock board (rows only): {elapsed:.1f} s, {elapsed / len(variants) * 1e3:.0f} ms each "
           "(goal < 30 s)")

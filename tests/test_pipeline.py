@@ -5,7 +5,7 @@ import pytest
 
 from emispec.board import load_board
 from emispec.coupling import loop_field
-from emispec.margin import estimate
+from emispec.pipeline import estimate
 from emispec.units import db_micro
 from emispec.waveform import Trapezoid, harmonic_amplitudes
 
@@ -32,7 +32,7 @@ gain = [["100 kHz", -70.0], ["100 MHz", -70.0]]
 
 def test_transfer_reading_is_line_level_plus_gain(write_board):
     # Source: Paul 2006 sec. 3.2 trapezoid levels (via harmonic_amplitudes, checked against FFT elsewhere);
-    # transfer gain applied in dB per SPEC 2.6; limit per CISPR 32 Table A.10
+    # transfer gain applied in dB (README, transfer paths); limit per CISPR 32 Table A.10
     est = estimate(load_board(write_board(TRANSFER_BOARD)))
     rows = est.rows
     assert set(rows.harmonic) == set(range(1, 61))  # 0.5 .. 30 MHz
@@ -203,7 +203,7 @@ gain = [["30 MHz", -80.0], ["1 GHz", -80.0]]
 
 @pytest.mark.parametrize("shared", [False, True])
 def test_coincident_harmonics_add_in_power_or_in_amplitude(write_board, shared):
-    # Source: power sum of incoherent sources; amplitude sum (worst case) for a shared reference (SPEC 2.5)
+    # Source: power sum of incoherent sources; amplitude sum (worst case) for a shared reference (README, Rows)
     refs = dict(ref_a='reference = "x"', ref_b='reference = "x"') if shared else dict(ref_a="", ref_b="")
     est = estimate(load_board(write_board(COINCIDENT_BOARD.format(**refs))))
     rows = est.rows

@@ -1,0 +1,158 @@
+"""Many boards at once: ensembles of one template, evaluated on any executor.
+
+An ensemble is a template plus a list of members, each a set of values (key
+path -> value as written in a board file, or SI values of numeric parameters).
+Evaluating it gives one estimate per member, in order; :class:`EnsembleResult`
+lines their rows up by (source, harmonic), so that a column of every member is
+one matrix (members x rows) even where members have different harmonics (a
+frequency change moves the span's edges).
+
+Evaluation takes any ``concurrent.futures``-style executor (anything with
+``submit(fn, *args)`` returning a future: a process or thread pool, a Dask
+client's executor).  Jobs carry the template and a chunk of members, never
+open files; the default is to run in this process.  :func:`process_pool`
+makes a process pool whose workers end when their parent does.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures
+import dataclasses
+import os
+import sys
+import threading
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .parameters import Template
+from .pipeline import Estimate, Reuse, estimate
+
+__all__ = ["Ensemble", "EnsembleResult", "evaluate", "process_pool"]
+
+
+def _evaluate_chunk(template: Template, members: Sequence[Mapping], si: bool) -> list[Estimate]:
+    """Estimate each member; line spectra are dropped to keep many estimates in memory.
+
+    Members share the work on the sources they do not change (see :class:`emispec.pipeline.Reuse`).
+    """
+    build = template.board_at if si else template.board
+    reuse = Reuse()
+    return [dataclasses.replace(estimate(build(member), reuse), lines=()) for member in members]
+
+
+def evaluate(template: Template, members: Sequence[Mapping], executor=None, progress=None, si: bool = False,
+             chunk: int | None = None) -> list[Estimate]:
+    """One estimate per member, in order.
+
+    Parameters
+    ----------
+    template : Template
+    members : sequence of mapping
+        Values per member: as written in a board file, or (``si=True``) SI
+        values of numeric parameters.
+    executor : concurrent.futures.Executor, optional
+        Where to run; None runs in this process.
+    progress : callable, optional
+        Called with the number of members just finished.
+    chunk : int, optional
+        Members per job (default: about four jobs per worker).
+    """
+    members = list(members)
+    if executor is None:
+        build = template.board_at if si else template.board
+        reuse, out = Reuse(), []
+        for member in members:
+            out.append(dataclasses.replace(estimate(build(member), reuse), lines=()))
+            if progress is not None:
+                progress(1)
+        return out
+    workers = getattr(executor, "_max_workers", None) or os.cpu_count() or 1
+    size = chunk or max(1, len(members) // (4 * workers))
+    pieces = [members[i:i + size] for i in range(0, len(members), size)]
+    futures = {executor.submit(_evaluate_chunk, template, piece, si): k for k, piece in enumerate(pieces)}
+    results: list[list[Estimate] | None] = [None] * len(pieces)
+    try:
+        for future in concurrent.futures.as_completed(futures):
+            k = futures[future]
+            results[k] = future.result()
+            if progress is not None:
+                progress(len(pieces[k]))
+    except BaseException:
+        for future in futures:
+            future.cancel()
+        raise
+    return [est for piece in results for est in piece]
+
+
+@dataclass(frozen=True)
+class EnsembleResult:
+    """Estimates of an ensemble's members, with their rows lined up by (source, harmonic)."""
+
+    members: tuple[Mapping, ...]
+    estimates: tuple[Estimate, ...]
+
+    @property
+    def keys(self) -> list[tuple[str, int]]:
+        """Every (source, harmonic) some member has, in the order of first appearance."""
+        seen: dict[tuple[str, int], None] = {}
+        for est in self.estimates:
+            for key in zip(est.rows.source.tolist(), est.rows.harmonic.tolist()):
+                seen.setdefault((str(key[0]), int(key[1])), None)
+        return list(seen)
+
+    def matrix(self, column: str, detector: str | None = None) -> np.ndarray:
+        """A numeric row column of every member: shape (members, len(keys)), NaN where a member lacks the row."""
+        keys = self.keys
+        index = {k: j for j, k in enumerate(keys)}
+        out = np.full((len(self.estimates), len(keys)), np.nan)
+        for m, est in enumerate(self.estimates):
+            values = est.rows.columns[column]
+            values = values[detector] if detector is not None else values
+            cols = [index[(str(s), int(h))] for s, h in zip(est.rows.source, est.rows.harmonic)]
+            out[m, cols] = values
+        return out
+
+
+class Ensemble:
+    """A template and its members (see the module docstring)."""
+
+    def __init__(self, template: Template, members: Sequence[Mapping], si: bool = False):
+        self.template, self.members, self.si = template, tuple(members), si
+
+    def __len__(self) -> int:
+        return len(self.members)
+
+    def evaluate(self, executor=None, progress=None) -> EnsembleResult:
+        estimates = evaluate(self.template, self.members, executor, progress, self.si)
+        return EnsembleResult(self.members, tuple(estimates))
+
+
+def _worker_start(parent: int) -> None:
+    """Worker initializer: one FFT thread per process, and exit as soon as the parent is gone (even after SIGKILL)."""
+    from . import receiver
+
+    receiver.FFT_WORKERS = 1
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+            import signal
+
+            ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
+        except (OSError, AttributeError):
+            pass
+
+    def watch():
+        while True:
+            if os.getppid() != parent:
+                os._exit(1)
+            threading.Event().wait(0.5)
+
+    threading.Thread(target=watch, daemon=True).start()
+
+
+def process_pool(workers: int | None = None) -> concurrent.futures.ProcessPoolExecutor:
+    """A process pool whose workers end with this process."""
+    return concurrent.futures.ProcessPoolExecutor(workers or os.cpu_count() or 1, initializer=_worker_start,
+                                                  initargs=(os.getpid(),))

@@ -1,0 +1,63 @@
+"""The pre-compliance test plan: which frequencies to measure first, with band, RBW, detectors and expectations."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .pipeline import Estimate
+from .receiver import band_names, resolution_bandwidth_hz
+
+__all__ = ["PLAN_COLUMNS", "plan_rows"]
+
+
+PLAN_COLUMNS = ("priority", "source", "harmonic", "frequency_hz", "band_lo_hz", "band_hi_hz", "cispr_band", "rbw_hz",
+                "detectors", "expected", "limit", "margin_db", "note")
+
+
+def plan_rows(est: Estimate, everything: bool = False) -> list[dict]:
+    """The frequencies to measure first, worst margin first.
+
+    Only rows over the limit or inside the guard band unless ``everything``.
+    """
+    r = est.rows
+    detectors = est.board.limit.detectors
+    keep = np.ones(len(r), bool) if everything else (r.flags["over-limit"] | r.flags["within-guard-band"])
+    keep &= np.isfinite(r.worst_margin_db)
+    bands = band_names(r.frequency_hz)
+    rbw = resolution_bandwidth_hz(r.frequency_hz)
+    out = []
+    for priority, i in enumerate(np.flatnonzero(keep), start=1):
+        det = r.worst_detector[i]
+        present = [d for d in detectors if np.isfinite(r.limits[d][i])]
+        notes = []
+        if r.spread[i]:
+            notes.append(f"spread band {r.band_lo_hz[i] / 1e6:.6g}-{r.band_hi_hz[i] / 1e6:.6g} MHz: peak scan "
+                         f"across it at {rbw[i] / 1e3:g} kHz RBW, then {'/'.join(present)} at the maximum")
+        elif "QP" in present:
+            notes.append("peak prescan, then QP on the line")
+        flags = r.flag_list(i)
+        overlaps = [f.split(":", 1)[1] for f in flags if f.startswith("overlaps:")]
+        if overlaps:
+            notes.append(f"shares the RBW with {', '.join(overlaps)}: switch sources off to tell them apart")
+        if "decoupling-insufficient" in flags:
+            notes.append("rail current escapes the decoupling: check it with a current probe on the cable")
+        if "near-anti-resonance" in flags:
+            notes.append("near a decoupling anti-resonance: sensitive to part values")
+        if "near-field" in flags:
+            notes.append("near field at this distance: estimate less certain")
+        out.append({
+            "priority": priority,
+            "source": str(r.source[i]),
+            "harmonic": int(r.harmonic[i]),
+            "frequency_hz": float(r.frequency_hz[i]),
+            "band_lo_hz": float(r.band_lo_hz[i]),
+            "band_hi_hz": float(r.band_hi_hz[i]),
+            "cispr_band": str(bands[i]),
+            "rbw_hz": float(rbw[i]),
+            "detectors": "/".join(present),
+            "expected": float(r.readings[det][i]),
+            "limit": float(r.limits[det][i]),
+            "margin_db": float(r.worst_margin_db[i]),
+            "note": "; ".join(notes),
+        })
+    return out

@@ -1,0 +1,240 @@
+"""Every file emispec reads, in one place: board and limit TOML, two-column CSV lines, Touchstone, impedance tables.
+
+Each reader takes a path and returns the data with where it came from, or
+raises :class:`FileError` (file, where in it, what is wrong) that the caller
+turns into its own one-line error with the key that named the file.  All text
+goes through :func:`read_text`: only regular files are read, up to
+:data:`MAX_BYTES`, a UTF-8 byte-order mark is dropped, and text that is not
+UTF-8 is refused with the offset of the first bad byte.
+
+A :class:`FileCache` remembers what was read, so that a board parsed once
+(:mod:`emispec.parameters`) builds any number of variants without touching the
+disk again.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import os
+import stat
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .units import QuantityError, parse_quantity
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+__all__ = [
+    "MAX_BYTES",
+    "FileError",
+    "TouchstoneError",
+    "TextFile",
+    "ImpedanceData",
+    "FileCache",
+    "read_text",
+    "read_toml",
+    "read_two_column_csv",
+    "read_touchstone",
+    "read_impedance_table",
+]
+
+#: Largest file emispec reads (board, limit, table, Touchstone) [bytes].
+MAX_BYTES = 16 * 1024 * 1024
+
+
+class FileError(ValueError):
+    """A file that cannot be used: the file, where in it, and what is wrong."""
+
+    def __init__(self, file: str, where: str, problem: str):
+        self.file, self.where, self.problem = file, where, problem
+        super().__init__(f"{file}: {where}: {problem}")
+
+
+class TouchstoneError(ValueError):
+    """A Touchstone or impedance-table file that cannot be used (the message names the file)."""
+
+
+@dataclass(frozen=True)
+class TextFile:
+    """A text file's contents, its name and the sha256 of its bytes."""
+
+    text: str
+    file: str
+    sha256: str
+
+
+def _kind(mode: int) -> str:
+    for test, name in ((stat.S_ISDIR, "a directory"), (stat.S_ISFIFO, "a pipe (FIFO)"),
+                       (stat.S_ISCHR, "a character device"), (stat.S_ISBLK, "a block device"),
+                       (stat.S_ISSOCK, "a socket")):
+        if test(mode):
+            return name
+    return "not a regular file"
+
+
+def read_text(path: str | Path, what: str = "file") -> TextFile:
+    """Read a regular text file of at most :data:`MAX_BYTES` as UTF-8 (a byte-order mark is dropped).
+
+    Raises
+    ------
+    FileError
+        Missing, unreadable, not a regular file, too large, or not UTF-8.
+    """
+    path = Path(path)
+    file = str(path)
+    try:
+        info = os.stat(path)
+    except OSError as err:
+        raise FileError(file, what, f"cannot read the {what} ({err.strerror or err})") from None
+    if not stat.S_ISREG(info.st_mode):
+        raise FileError(file, what, f"cannot read the {what}: it is {_kind(info.st_mode)}")
+    if info.st_size > MAX_BYTES:
+        raise FileError(file, what, f"the {what} is {info.st_size / 2**20:.1f} MiB; emispec reads files up to "
+                        f"{MAX_BYTES // 2**20} MiB")
+    try:
+        with open(path, "rb") as handle:
+            raw = handle.read(MAX_BYTES + 1)
+    except OSError as err:
+        raise FileError(file, what, f"cannot read the {what} ({err.strerror or err})") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        raise FileError(file, what, f"not UTF-8 text (byte 0x{raw[err.start]:02x} at offset {err.start}); "
+                        "save it as UTF-8") from None
+    return TextFile(text.removeprefix("\ufeff"), file, hashlib.sha256(raw).hexdigest())
+
+
+def read_toml(path: str | Path, what: str = "file") -> tuple[dict, TextFile]:
+    """Parse a TOML file; returns the table and the text it came from."""
+    source = read_text(path, what)
+    try:
+        return tomllib.loads(source.text), source
+    except tomllib.TOMLDecodeError as err:
+        raise FileError(source.file, "toml", f"not valid TOML: {err}") from None
+    except RecursionError:
+        raise FileError(source.file, "toml", "not valid TOML: nested too deeply") from None
+
+
+def read_two_column_csv(path: str | Path, what: str = "limit") -> tuple[np.ndarray, np.ndarray, dict]:
+    """Rows ``frequency,level`` (quantities or plain numbers); ``# key: value`` comment lines carry metadata.
+
+    A first row whose cells are not quantities is a header.  Returns the
+    frequencies [Hz], the levels [dB] and the metadata.
+    """
+    source = read_text(path, what)
+    file = source.file
+    meta, freqs, levels = {}, [], []
+    rows = [line for line in source.text.splitlines() if line.strip()]
+    for lineno, line in enumerate(rows, start=1):
+        if line.lstrip().startswith("#"):
+            name, sep, val = line.lstrip("# ").partition(":")
+            if sep:
+                meta[name.strip().lower()] = val.strip()
+            continue
+        cells = next(csv.reader([line]))
+        if len(cells) != 2:
+            raise FileError(file, f"line {lineno}", "expected two columns: frequency, level in dB")
+        try:
+            freqs.append(parse_quantity(cells[0].strip(), "frequency"))
+            levels.append(parse_quantity(cells[1].strip(), "decibel"))
+        except QuantityError as err:
+            if not freqs and not levels:  # a header row
+                continue
+            raise FileError(file, f"line {lineno}", str(err)) from None
+    if len(freqs) < 2:
+        raise FileError(file, what, "needs at least two (frequency, level) rows")
+    return np.array(freqs), np.array(levels), meta
+
+
+@dataclass(frozen=True)
+class ImpedanceData:
+    """A part's measured impedance: frequencies [Hz], complex impedances [ohm], and the file."""
+
+    frequency_hz: np.ndarray
+    z_ohm: np.ndarray
+    origin: str = field(default="", compare=False)
+
+    def __iter__(self):
+        return iter((self.frequency_hz, self.z_ohm))
+
+
+def read_touchstone(path: Path) -> ImpedanceData:
+    """Impedance from a one-port reflection (.s1p) or a two-port shunt-through measurement (.s2p).
+
+    Z = Z0 (1 + S11) / (1 - S11) for a one-port; Z = (Z0 / 2) S21 / (1 - S21)
+    for a shunt element between two Z0 ports.  Needs scikit-rf
+    (``pip install 'emispec[touchstone]'``).
+    """
+    try:
+        import skrf
+    except ImportError:
+        raise TouchstoneError(
+            "reading Touchstone files needs scikit-rf; install it with: pip install 'emispec[touchstone]'"
+        ) from None
+    try:
+        network = skrf.Network(str(path))
+    except Exception as err:  # noqa: BLE001 - skrf raises many kinds
+        raise TouchstoneError(f"cannot read {path} as Touchstone ({err})") from None
+    z0 = network.z0[:, 0]
+    if network.nports == 1:
+        s11 = network.s[:, 0, 0]
+        z = z0 * (1 + s11) / (1 - s11)
+    elif network.nports == 2:
+        s21 = network.s[:, 1, 0]
+        z = 0.5 * z0 * s21 / (1 - s21)
+    else:
+        raise TouchstoneError(f"{path}: expected a 1-port or a 2-port (shunt-through) file")
+    return ImpedanceData(np.asarray(network.f, dtype=float), np.asarray(z, dtype=complex), str(path))
+
+
+def read_impedance_table(path: Path) -> ImpedanceData:
+    """CSV with a header: frequency_hz plus magnitude_ohm and phase_deg, or resistance_ohm and reactance_ohm.
+
+    Lines starting with '#' are comments.
+    """
+    try:
+        text = read_text(path, "table").text
+    except FileError as err:
+        raise TouchstoneError(f"{path}: {err.problem}") from None
+    rows = list(csv.DictReader(io.StringIO("\n".join(
+        line for line in text.splitlines() if line.strip() and not line.startswith("#")))))
+    if not rows:
+        raise TouchstoneError(f"{path}: no data rows")
+    columns = set(rows[0])
+    try:
+        f = np.array([float(r["frequency_hz"]) for r in rows])
+        if {"magnitude_ohm", "phase_deg"} <= columns:
+            z = np.array([float(r["magnitude_ohm"]) * np.exp(1j * np.radians(float(r["phase_deg"]))) for r in rows])
+        elif {"resistance_ohm", "reactance_ohm"} <= columns:
+            z = np.array([float(r["resistance_ohm"]) + 1j * float(r["reactance_ohm"]) for r in rows])
+        else:
+            raise KeyError("columns")
+    except (KeyError, ValueError):
+        raise TouchstoneError(
+            f"{path}: expected columns frequency_hz with magnitude_ohm and phase_deg, or with resistance_ohm and "
+            "reactance_ohm"
+        ) from None
+    if np.any(f <= 0) or np.any(np.diff(f) <= 0) or np.any(np.abs(z) == 0) or not np.all(np.isfinite(z)):
+        raise TouchstoneError(f"{path}: frequencies must be > 0 and ascending, impedances finite and non-zero")
+    return ImpedanceData(f, z, str(path))
+
+
+class FileCache:
+    """What a board's parse has read, by reader and resolved path, so variants read no file again."""
+
+    def __init__(self) -> None:
+        self._data: dict[tuple[str, str], object] = {}
+
+    def read(self, reader, path: str | Path, *args):
+        key = (reader.__name__, os.path.abspath(path), *args)
+        if key not in self._data:
+            self._data[key] = reader(path, *args)
+        return self._data[key]
