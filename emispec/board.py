@@ -25,7 +25,8 @@ from .decoupling import Rail
 from .limits import Limit, LimitError, limit_from_mapping, load_limit
 from .readers import FileCache, FileError, read_toml
 from .schema import BoardError, Key, TableReader
-from .sources import SOURCE_SECTIONS, BoardContext, Clock, Current, Source
+from .sources import COMBINES, MODES, SOURCE_SECTIONS, BoardContext, Clock, Current, Source
+from .units import QuantityError, parse_quantity
 
 __all__ = ["BoardError", "Board", "Clock", "Current", "TOP_KEYS", "load_board", "read_board_data",
            "board_from_mapping", "EntryMemo"]
@@ -35,6 +36,9 @@ TOP_KEYS = (
     Key("guard_band", "decibel", default=0.0, low=0.0, high=60.0, low_open=False),
     Key("limit", "any"),
     Key("max_frequency", "frequency", low=0.0),
+    Key("harmonics", "choice", default="envelope", choices=MODES),
+    Key("combine", "choice", default="power", choices=COMBINES),
+    Key("highest_internal_frequency", "any"),
     *(Key(section, "tables", schema=cls.KEYS) for section, cls in SOURCE_SECTIONS.items()),
     Key("path", "tables", schema=lambda table: PATH_KINDS[table["kind"]].KEYS),
     Key("rail", "tables", schema=Rail.KEYS),
@@ -54,6 +58,7 @@ class Board:
     paths: dict[str, Path]
     max_frequency_hz: float | None = None
     rails: dict[str, Rail] = field(default_factory=dict)
+    highest_frequency_hz: float | None = None
 
     @property
     def clocks(self) -> tuple[Source, ...]:
@@ -100,9 +105,10 @@ def _named_tables(file: str, data: dict, kind: str) -> list[tuple[str, dict]]:
     return named
 
 
-def _references(table: dict, limit, paths: dict, rails: dict, sources: dict) -> tuple | None:
-    """The parsed entries a source's table names (its paths, its rail, the clock it follows), or None if any is
-    missing (then the entry is checked again, and the check reports it)."""
+def _references(table: dict, limit, paths: dict, rails: dict, sources: dict, defaults: tuple) -> tuple | None:
+    """What a source's entry depends on: the limit, the board's default harmonics, and the parsed entries its
+    table names (its paths, its rail, the clock it follows); None if any is missing (then the entry is checked
+    again, and the check reports it)."""
     try:
         named = [paths[p] for p in table.get("paths", ())]
         if "rail" in table:
@@ -111,7 +117,7 @@ def _references(table: dict, limit, paths: dict, rails: dict, sources: dict) -> 
             named.append(sources[table["clock"]])
     except (KeyError, TypeError):
         return None
-    return (limit, *named)
+    return (limit, *defaults, *named)
 
 
 def _parse_limit(file: str, raw: object, base_dir: FilePath, files: FileCache) -> Limit:
@@ -151,7 +157,8 @@ def board_from_mapping(data: dict, file: str = "<board>", base_dir: FilePath | N
     paths = {name: memo.get(("path", name), table, (limit,),
                             lambda table=table, name=name: path_from_table(file, name, table, limit))
              for name, table in _named_tables(file, data, "path")}
-    ctx = BoardContext(file, base_dir, limit, paths, rails, {}, files)
+    harmonics, combine = top.get("harmonics"), top.get("combine")
+    ctx = BoardContext(file, base_dir, limit, paths, rails, {}, files, harmonics, combine)
     sources: dict[str, Source] = {}
     for section, cls in SOURCE_SECTIONS.items():
         parsed = {}
@@ -159,12 +166,12 @@ def board_from_mapping(data: dict, file: str = "<board>", base_dir: FilePath | N
             if name in sources:
                 other = sources[name].section
                 raise BoardError(file, f"{section}[{name}].name", f"a {other} has this name; names must be unique")
-            deps = _references(table, limit, paths, rails, sources)
+            deps = _references(table, limit, paths, rails, sources, (harmonics, combine))
             parsed[name] = memo.get((section, name), table, deps, lambda table=table, name=name, cls=cls: cls.from_table(
                 TableReader(file, f"{section}[{name}]", table, cls.KEYS), ctx))
         sources.update(parsed)
         if section == "clock":
-            ctx = BoardContext(file, base_dir, limit, paths, rails, dict(parsed), files)
+            ctx = BoardContext(file, base_dir, limit, paths, rails, dict(parsed), files, harmonics, combine)
     if not sources:
         raise top.error("clock", "no source defined; add at least one [[clock]] or [[current]] table")
     title = top.get("title")
@@ -178,7 +185,25 @@ def board_from_mapping(data: dict, file: str = "<board>", base_dir: FilePath | N
         paths=paths,
         max_frequency_hz=top.get("max_frequency"),
         rails=rails,
+        highest_frequency_hz=_highest(top),
     )
+
+
+def _highest(top: TableReader) -> float | None:
+    """``highest_internal_frequency``: a frequency, or "unknown" (infinite: the rule's widest span)."""
+    raw = top.table.get("highest_internal_frequency")
+    if raw is None:
+        return None
+    if raw == "unknown":
+        return float("inf")
+    try:
+        value = parse_quantity(raw, "frequency")
+    except QuantityError as err:
+        raise top.error("highest_internal_frequency", f"{err}; or 'unknown'", raw) from None
+    if not 0 < value <= 1e12:
+        raise top.error("highest_internal_frequency", "out of range; allowed: > 0 Hz and <= 1e+12 Hz, or 'unknown'",
+                        raw)
+    return value
 
 
 def read_board_data(path: str | FilePath) -> tuple[dict, str, FilePath, str]:

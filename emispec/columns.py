@@ -125,6 +125,13 @@ def _json_paths(est, values, i):
             for p in est.source_paths[str(r.source[i])]}
 
 
+def _json_cables(est, values, i):
+    """{cable path: dBuA} for the row's source's cables, None where it drives none."""
+    r = est.rows
+    mine = [p for p in est.source_paths[str(r.source[i])] if p in values]
+    return {p: _num(values[p][i]) for p in mine} or None
+
+
 def _json_limits(est, values, i):
     return {d: _num(v[i]) for d, v in values.items() if math.isfinite(v[i])}
 
@@ -147,10 +154,18 @@ COLUMNS: tuple[Column, ...] = (
     Column("cispr_band", "band", "text", lambda est: band_names(est.rows.frequency_hz), frozenset({"term"})),
     Column("band_lo_hz", "band from Hz", "hz", _rows("band_lo_hz"), frozenset({"csv", "md"})),
     Column("band_hi_hz", "band to Hz", "hz", _rows("band_hi_hz"), frozenset({"csv", "md"})),
+    Column("harmonics", "level", "text", _rows("harmonics"), frozenset({"json", "csv"})),
     Column("line_dbuv", "line dBuV", "db", _rows("line_dbuv"), frozenset({"json", "csv", "md"})),
     Column("line_dbua", "line dBuA", "db", _rows("line_dbua"), frozenset({"json", "csv", "md"})),
+    Column("line_envelope_dbuv", "envelope dBuV", "db", _rows("line_envelope_dbuv"), frozenset({"json", "csv"})),
+    Column("line_exact_dbuv", "exact dBuV", "db", _rows("line_exact_dbuv"), frozenset({"json", "csv"})),
+    Column("line_envelope_dbua", "envelope dBuA", "db", _rows("line_envelope_dbua"), frozenset({"json", "csv"})),
+    Column("line_exact_dbua", "exact dBuA", "db", _rows("line_exact_dbua"), frozenset({"json", "csv"})),
+    Column("rail_dbua", "rail dBuA", "db", _rows("rail_dbua"), frozenset({"json", "csv"}), when=_has_rails),
     Column("band_hz", "band", "json", _rows("band_lo_hz"), frozenset({"json"}), json=_json_band),
     Column("paths", "paths", "json", _rows("path_readings"), frozenset({"json"}), json=_json_paths),
+    Column("cable_current_dbua", "cable dBuA", "json", _rows("cable_current_dbua"), frozenset({"json"}),
+           json=_json_cables),
     Column("readings", "reading", "db", _per_detector("readings"), frozenset({"json", "csv", "md", "html"}),
            per_detector=True, csv="reading"),
     Column("worst_detector", "det", "text", _rows("worst_detector"), frozenset({"term"})),
@@ -168,6 +183,8 @@ COLUMNS: tuple[Column, ...] = (
     Column("flags", "flags", "flags", lambda est: est.rows, frozenset(ALL)),
     Column("decoupling_impedance_ohm", "|Z_dec| ohm", "ohm", _rows("decoupling_impedance_ohm"),
            frozenset({"json", "csv", "md"}), when=_has_rails),
+    Column("decoupling_impedance_max_ohm", "worst |Z_dec| ohm", "ohm", _rows("decoupling_impedance_max_ohm"),
+           frozenset({"json", "csv"}), when=_has_rails),
     Column("required_impedance_ohm", "required ohm", "ohm", _rows("required_impedance_ohm"),
            frozenset({"json", "csv", "md"}), when=_has_rails),
     Column("suppression_db", "suppression dB", "db", _rows("suppression_db"), frozenset({"json", "csv", "md"}),

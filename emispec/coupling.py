@@ -45,6 +45,8 @@ __all__ = [
     "TransferPath",
     "ConductedPath",
     "COMMON_MODE_OHM",
+    "reflection_factor",
+    "common_mode_current",
     "PATH_KINDS",
     "path_from_table",
 ]
@@ -57,8 +59,25 @@ LOOP_CONSTANT = np.pi * constants.mu_0 * constants.c / constants.c**2
 #: on an open-area test site (Ott 2009, ch. 12).
 GROUND_REFLECTION = 2.0
 
+#: Above this frequency radiated emissions are measured over an absorber-lined
+#: floor (CISPR 16-1-4 free-space site; ANSI C63.4), so there is no reflection.
+REFLECTING_UP_TO_HZ = 1e9
 
-def loop_field(frequency_hz, current_a, area_m2, distance_m, ground_reflection=True):
+
+def reflection_factor(frequency_hz, ground_reflection="auto") -> np.ndarray:
+    """Field factor of the site's ground reflection: 2 (+6 dB) or 1.
+
+    ``"auto"``: 2 up to 1 GHz, where the site has a reflecting ground plane, and 1 above, where the standards
+    measure over absorber on the floor (CISPR 16-1-4; ANSI C63.4).  ``True`` / ``False``: 2 / 1 at every
+    frequency.
+    """
+    f = np.asarray(frequency_hz, dtype=float)
+    if ground_reflection == "auto":
+        return np.where(f <= REFLECTING_UP_TO_HZ * (1 + 1e-12), GROUND_REFLECTION, 1.0)
+    return np.full(f.shape, GROUND_REFLECTION if ground_reflection else 1.0)
+
+
+def loop_field(frequency_hz, current_a, area_m2, distance_m, ground_reflection="auto"):
     """Far-field strength of a small current loop, maximum direction [V/m].
 
     |E| = K f^2 A I / r with K = pi eta0 / c^2, doubled with a ground-plane
@@ -74,19 +93,19 @@ def loop_field(frequency_hz, current_a, area_m2, distance_m, ground_reflection=T
         Loop area [m2].
     distance_m : float
         Distance [m].
-    ground_reflection : bool
-        Add the +6 dB of a ground-plane reflection.
+    ground_reflection : bool or "auto"
+        Add the +6 dB of a ground-plane reflection (see :func:`reflection_factor`).
 
     References
     ----------
     Paul (2006), sec. 8.1.2; Ott (2009), ch. 12.
     """
     f = np.asarray(frequency_hz, dtype=float)
-    factor = GROUND_REFLECTION if ground_reflection else 1.0
+    factor = reflection_factor(f, ground_reflection)
     return factor * LOOP_CONSTANT * f**2 * area_m2 * np.asarray(current_a) / distance_m
 
 
-def cable_field(frequency_hz, current_a, length_m, distance_m, ground_reflection=True):
+def cable_field(frequency_hz, current_a, length_m, distance_m, ground_reflection="auto"):
     """Far-field strength of a cable carrying common-mode current [V/m].
 
     A short wire of length L with a uniform total current I radiates
@@ -107,8 +126,8 @@ def cable_field(frequency_hz, current_a, length_m, distance_m, ground_reflection
         Cable length [m].
     distance_m : float
         Distance [m].
-    ground_reflection : bool
-        Add the +6 dB of a ground-plane reflection.
+    ground_reflection : bool or "auto"
+        Add the +6 dB of a ground-plane reflection (see :func:`reflection_factor`).
 
     References
     ----------
@@ -116,7 +135,7 @@ def cable_field(frequency_hz, current_a, length_m, distance_m, ground_reflection
     """
     f = np.asarray(frequency_hz, dtype=float)
     effective_length = np.minimum(length_m, 0.5 * constants.c / f)
-    factor = GROUND_REFLECTION if ground_reflection else 1.0
+    factor = reflection_factor(f, ground_reflection)
     return factor * 0.5 * constants.mu_0 * f * effective_length * np.asarray(current_a) / distance_m
 
 
@@ -162,10 +181,23 @@ class Path(Protocol):
     def flags(self, frequency_hz, limit_distance_m) -> dict[str, np.ndarray]: ...
 
 
+def common_mode_current(path, frequency_hz, source: dict) -> np.ndarray | None:
+    """The common-mode current at a cable's base [A RMS], for paths that are cables (None for the others)."""
+    carries = getattr(path, "common_mode_current", None)
+    return None if carries is None else carries(frequency_hz, source)
+
+
 _NAME = Key("name", "text", required=True)
 _KIND = Key("kind", "text", required=True)
 _DISTANCE = Key("distance", "length", low=0.0, high=1e3)
-_REFLECTION = Key("ground_reflection", "bool", default=True)
+_REFLECTION = Key("ground_reflection", "any", default="auto")
+
+
+def _reflection(r: TableReader):
+    value = r.get("ground_reflection")
+    if value not in (True, False, "auto") or isinstance(value, (int, float)) and not isinstance(value, bool):
+        raise r.error("ground_reflection", "expected true, false or 'auto' (+6 dB up to 1 GHz, none above)", value)
+    return value
 _TERMINATION = Key("termination", "resistance", default=COMMON_MODE_OHM, low=0.0)
 
 
@@ -189,7 +221,7 @@ class LoopPath:
     name: str
     area_m2: float
     distance_m: float | None = None
-    ground_reflection: bool = True
+    ground_reflection: bool | str = "auto"
     input: str = "current"
 
     def reading(self, frequency_hz, source, limit_distance_m):
@@ -204,8 +236,7 @@ class LoopPath:
     @classmethod
     def from_table(cls, r: TableReader, limit) -> LoopPath:
         distance = _distance(r, limit)
-        return cls(r.get("name"), area_m2=r.get("area"), distance_m=distance,
-                   ground_reflection=r.get("ground_reflection"))
+        return cls(r.get("name"), area_m2=r.get("area"), distance_m=distance, ground_reflection=_reflection(r))
 
 
 @dataclass(frozen=True)
@@ -231,7 +262,7 @@ class CablePath:
     length_m: float
     ratio: float = 1.0
     distance_m: float | None = None
-    ground_reflection: bool = True
+    ground_reflection: bool | str = "auto"
     termination_ohm: float = COMMON_MODE_OHM
     drive: str = "ratio"
 
@@ -242,8 +273,12 @@ class CablePath:
     def termination(self, frequency_hz) -> np.ndarray:
         return np.full(np.shape(frequency_hz), self.termination_ohm, dtype=complex)
 
+    def common_mode_current(self, frequency_hz, source) -> np.ndarray:
+        """The total common-mode current on the cable [A RMS]: ``ratio`` times the driving current."""
+        return self.ratio * np.asarray(source[self.input])
+
     def reading(self, frequency_hz, source, limit_distance_m):
-        current = self.ratio * source[self.input]
+        current = self.common_mode_current(frequency_hz, source)
         return cable_field(frequency_hz, current, self.length_m, limit_distance_m, self.ground_reflection)
 
     def flags(self, frequency_hz, limit_distance_m):
@@ -254,7 +289,7 @@ class CablePath:
         distance = _distance(r, limit)
         drive = r.get("drive")
         length = r.get("length")
-        reflection = r.get("ground_reflection")
+        reflection = _reflection(r)
         if drive == "ratio" and r.has("termination"):
             raise r.error("termination", "only with drive = 'escape'")
         if not r.has("ratio") and drive == "ratio":
@@ -319,7 +354,12 @@ class TransferPath:
         return source[self.input] * gain * scale
 
     def flags(self, frequency_hz, limit_distance_m):
-        return {}
+        """Near field where the table's own distance (or the limit's) is below lambda / 2 pi: there the
+        inverse-distance scaling to the limit's distance does not hold."""
+        distance = self.distance_m or limit_distance_m
+        if distance is None:
+            return {}
+        return {NEAR_FIELD: near_field(frequency_hz, distance)}
 
     @classmethod
     def from_table(cls, r: TableReader, limit) -> TransferPath:

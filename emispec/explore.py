@@ -154,9 +154,10 @@ def solve(template: Template, key: str, low: str, high: str, points: int = 17, t
     """The value of ``key`` in [low, high] at which the worst margin equals the guard band.
 
     ``scope`` names the source whose rows are judged; by default the source the
-    key belongs to (a clock's rise time is judged by that clock's harmonics),
-    or the whole board for other keys (a loop area, a capacitor count); None
-    judges the whole board.
+    key belongs to (a clock's rise time is judged by that clock's harmonics,
+    by its own reading of each: another source's line at the same frequency is
+    not the key's to fix), or the whole board for other keys (a loop area, a
+    capacitor count); None judges the whole board.
 
     The range is scanned first.  Where the worst margin is monotone in the
     value, the single crossing is refined by bisection.  Where it is not (sinc
@@ -180,9 +181,21 @@ def solve(template: Template, key: str, low: str, high: str, points: int = 17, t
     def judged(est):
         return np.ones(len(est.rows), bool) if scope is None else est.rows.source == scope
 
+    own_key = scope is not None and scope_of(key) == scope
+
+    def margins(est):
+        """Each judged row's worst margin: of the whole reading, or (a source's own key) of the source's own."""
+        r = est.rows
+        if not own_key:
+            return r.worst_margin_db
+        own = np.vstack([r.limits[d] - r.own_readings[d] for d in est.board.limit.detectors])
+        with np.errstate(invalid="ignore"):
+            return np.where(np.isfinite(own).any(axis=0), np.nanmin(np.where(np.isfinite(own), own, np.inf), axis=0),
+                            np.nan)
+
     def excess(v):
         est = run(v)
-        worst = est.rows.worst_margin_db[judged(est)]
+        worst = margins(est)[judged(est)]
         finite = worst[np.isfinite(worst)]
         return (float(finite.min()) if finite.size else np.inf) - est.board.guard_band_db
 
@@ -229,13 +242,13 @@ def solve(template: Template, key: str, low: str, high: str, points: int = 17, t
     binding = margin = None
     if value is not None:
         est = run(value)
-        candidates = np.flatnonzero(judged(est) & np.isfinite(est.rows.worst_margin_db))
-        if candidates.size:
-            i = candidates[0]  # rows are sorted worst first
+        judged_margin = np.where(judged(est), margins(est), np.nan)
+        if np.isfinite(judged_margin).any():
+            i = int(np.nanargmin(judged_margin))
             r = est.rows
             binding = (f"{r.source[i]} n={r.harmonic[i]} at {r.frequency_hz[i] / 1e6:.6g} MHz, "
                        f"{r.worst_detector[i]}")
-            margin = float(r.worst_margin_db[i])
+            margin = float(judged_margin[i])
     return Solution(
         key, scope, unit, None if value is None else float(value), margin,
         "larger values pass" if increasing else "smaller values pass", monotone, binding,

@@ -37,10 +37,11 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .board import Board
-from .decoupling import (ABOVE_TARGET, DECOUPLING_INSUFFICIENT, NEAR_ANTI_RESONANCE, anti_resonances,
-                         escape_fraction, impedance_for_escape, rail_summary)
+from .coupling import common_mode_current
+from .decoupling import ABOVE_TARGET, DECOUPLING_INSUFFICIENT, NEAR_ANTI_RESONANCE, impedance_for_escape, rail_summary
 from .flags import declare
 from .limits import upper_frequency_hz
+from .readings import combine, read_rows, row_max
 from .receiver import BANDS, resolution_bandwidth_hz, sweep
 from .rows import Rows, Verdict, Worst, assemble_rows
 from .sources import Source
@@ -55,6 +56,7 @@ __all__ = [
     "RailView",
     "analysis_span_hz",
     "source_gains",
+    "path_readings",
     "estimate",
     "swept_spectrum",
     "envelope_traces",
@@ -111,7 +113,8 @@ class Estimate:
                                              float(r.worst_margin_db[i]), str(r.worst_detector[i]))
         kind = ("no-data" if worst is None else "fails" if self.over_limit else
                 "marginal" if self.within_guard_band else "meets")
-        return Verdict(kind, len(r), self.over_limit, self.within_guard_band, self.board.guard_band_db, worst)
+        read = int(np.isfinite(r.worst_margin_db).sum())  # rows with a reading: nulls and rows off every line not
+        return Verdict(kind, read, self.over_limit, self.within_guard_band, self.board.guard_band_db, worst)
 
     def verdict(self) -> str:
         """The verdict in one line (see :func:`emispec.columns.verdict_text`)."""
@@ -120,12 +123,23 @@ class Estimate:
         return verdict_text(self.outcome)
 
 
+def highest_frequency_hz(board: Board) -> float:
+    """The highest internal frequency for the standards' upper-frequency rule.
+
+    The highest instantaneous frequency of any modelled source (a down-spread clock peaks at f0, a centre
+    spread at f0 (1 + deviation/2), an up spread at f0 (1 + deviation)), or the board's
+    ``highest_internal_frequency`` where that is higher (a PLL's oscillator no source models); infinite
+    where the board says it is unknown, which gives the rule's widest span.
+    """
+    modelled = max(s.frequency_hz * (s.spread.centre_factor + s.spread.deviation / 2 if s.spread else 1.0)
+                   for s in board.sources)
+    return modelled if board.highest_frequency_hz is None else max(modelled, board.highest_frequency_hz)
+
+
 def analysis_span_hz(board: Board) -> tuple[float, float]:
     """Frequency span to analyse: the limit's lines, cut at the standard's upper frequency and the board's cap."""
     lo, hi = board.limit.span_hz
-    highest = max(source.frequency_hz * (1 + (source.spread.deviation if source.spread else 0))
-                  for source in board.sources)
-    hi = min(hi, upper_frequency_hz(board.limit.upper_frequency, highest))
+    hi = min(hi, upper_frequency_hz(board.limit.upper_frequency, highest_frequency_hz(board)))
     if board.max_frequency_hz is not None:
         hi = min(hi, board.max_frequency_hz)
     return lo, hi
@@ -145,32 +159,52 @@ def _harmonic_numbers(source: Source, lo: float, hi: float) -> np.ndarray:
 
 def _escape(board: Board, source: Source, path_name: str, frequency_hz) -> np.ndarray:
     """Complex fraction of the rail current that leaves through this path's termination."""
-    rail = board.rails[source.rail]
-    z_path = rail.supply_impedance(frequency_hz) + board.paths[path_name].termination(frequency_hz)
-    return escape_fraction(rail.decoupling_impedance(frequency_hz), z_path)
+    return board.rails[source.rail].escape(frequency_hz, board.paths[path_name].termination(frequency_hz))
+
+
+def _quantities_here(board: Board, source: Source, name: str, f, quantities: dict) -> dict:
+    """What path ``name`` reads: the source's quantities, and for an escape path the rail current that leaves."""
+    if board.paths[name].input != "escape":
+        return quantities
+    return {**quantities, "escape": quantities["rail"] * np.abs(_escape(board, source, name, f))}
+
+
+def path_readings(board: Board, source: Source, frequency_hz, quantities: dict[str, np.ndarray]) -> dict:
+    """Each of the source's paths: its reading (linear, in the limit's unit) of the source's quantities.
+
+    ``quantities`` holds the RMS magnitudes of the source's voltage, current and rail current at each
+    frequency.  Escape paths read the rail current times the part that the rail's decoupling lets through to
+    their termination.
+    """
+    f = np.asarray(frequency_hz, dtype=float)
+    return {name: board.paths[name].reading(f, _quantities_here(board, source, name, f, quantities),
+                                            board.limit.distance_m)
+            for name in source.paths}
+
+
+def cable_currents(board: Board, source: Source, frequency_hz, quantities: dict) -> dict[str, np.ndarray]:
+    """The common-mode current at the base of each of the source's cables [A RMS]."""
+    f = np.asarray(frequency_hz, dtype=float)
+    out = {}
+    for name in source.paths:
+        current = common_mode_current(board.paths[name], f, _quantities_here(board, source, name, f, quantities))
+        if current is not None:
+            out[name] = current
+    return out
 
 
 def source_gains(board: Board, source: Source, frequency_hz) -> dict[str, np.ndarray]:
-    """Each of the source's paths: limit-unit level per unit of the source's own quantity.
-
-    The quantity is the clock voltage for a clock and the pulse current for a
-    current source; escape paths see the part of the current that the rail's
-    decoupling lets through to their termination.
-    """
+    """Each path's reading per unit (1 V, 1 A) of every quantity: what the path does to a source, alone."""
     f = np.asarray(frequency_hz, dtype=float)
-    per_unit = source.per_unit(f)
-    gains = {}
-    for name in source.paths:
-        path = board.paths[name]
-        quantities = dict(per_unit)
-        if path.input == "escape":
-            quantities["escape"] = per_unit["current"] * np.abs(_escape(board, source, name, f))
-        gains[name] = path.reading(f, quantities, board.limit.distance_m)
-    return gains
+    ones = np.ones(f.shape)
+    return path_readings(board, source, f, {"voltage": ones, "current": ones, "rail": ones})
 
 
-def _total_gain(gains: dict[str, np.ndarray]) -> np.ndarray:
-    """Paths of one source add in power (their relative phase is unknown)."""
+def _total_gain(gains: dict[str, np.ndarray], combine: str = "power") -> np.ndarray:
+    """Paths of one source add in power (their relative phase is unknown), or in amplitude (``"coherent"``:
+    the worst case, up to +6 dB with two equal paths)."""
+    if combine == "coherent":
+        return sum(np.asarray(g) for g in gains.values())
     return np.sqrt(sum(g**2 for g in gains.values()))
 
 
@@ -206,18 +240,21 @@ class _SourcePart:
     f: np.ndarray
     band_lo: np.ndarray
     band_hi: np.ndarray
-    magnitude: np.ndarray  # |harmonic| of the source's own quantity (RMS)
-    per_unit: dict[str, np.ndarray]
-    gains: dict[str, np.ndarray]
+    levels: dict[str, np.ndarray]  # RMS magnitudes of voltage, current and rail current the margins use
+    readings: dict[str, np.ndarray]  # each path's reading at n f0 (linear, limit unit)
     tuning: np.ndarray
     owner: np.ndarray
     unspread: SourceLines | None
     rbw: np.ndarray
 
     @property
+    def total(self) -> np.ndarray:
+        return _total_gain(self.readings, self.source.combine)
+
+    @property
     def live(self) -> np.ndarray:
-        """The harmonic exists (not a spectral null of the source's waveform)."""
-        return self.magnitude > 0
+        """The harmonic reaches the receiver through some path (not a null of what every path reads)."""
+        return self.total > 0
 
 
 class Reuse:
@@ -244,45 +281,81 @@ class Reuse:
         return hit[1]
 
 
+def _phase(harmonics: dict[str, np.ndarray]) -> np.ndarray:
+    """Unit phasors of the source's first quantity: the voltage of a clock, the current of a pulse train."""
+    primary = np.where(np.isfinite(harmonics["voltage"]), harmonics["voltage"], harmonics["current"])
+    return np.exp(1j * np.angle(primary))
+
+
 def _source_part(board: Board, source: Source, lo: float, hi: float) -> _SourcePart:
     spread, f0 = source.spread, source.frequency_hz
     n = _harmonic_numbers(source, lo, hi)
     f = n * f0
-    phasor = source.phasors(n)
-    gains = source_gains(board, source, f)
-    unmodulated = SourceLines(source.name, source.reference, f0, f, phasor * _total_gain(gains))
+    harmonics = source.harmonics(n)
+    levels = {k: np.abs(v) for k, v in harmonics.items()}
+    phase = _phase(harmonics)
+    readings = path_readings(board, source, f, levels)
+    unmodulated = SourceLines(source.name, source.reference, f0, f, phase * _total_gain(readings, source.combine))
     if spread is None:
         lines, unspread = unmodulated, None
         band_lo = band_hi = f
         tuning, owner = f.copy(), np.arange(n.size)
         rbw = resolution_bandwidth_hz(f)
     else:
-        line_hz, amp, _ = harmonic_lines(spread, f0, n, phasor)
+        line_hz, amp, line_owner = harmonic_lines(spread, f0, n, phase)
         order = np.argsort(line_hz, kind="stable")
-        line_hz = line_hz[order]
-        amp = amp[order] * _total_gain(source_gains(board, source, line_hz))
-        lines = SourceLines(source.name, source.reference, spread.rate_hz, line_hz, amp, modulated=True)
+        line_hz, amp, line_owner = line_hz[order], amp[order], line_owner[order]
+        at_lines = path_readings(board, source, line_hz, {k: v[line_owner] for k, v in levels.items()})
+        lines = SourceLines(source.name, source.reference, spread.rate_hz, line_hz,
+                            amp * _total_gain(at_lines, source.combine), modulated=True)
         unspread = unmodulated
         band_lo, band_hi = occupied_band_hz(spread, f0, n)
         rbw = resolution_bandwidth_hz(0.5 * (band_lo + band_hi))
         tuning, owner = _tuning_grid(band_lo - rbw / 2, band_hi + rbw / 2, rbw / 2)
-    return _SourcePart(lines, source, n, f, band_lo, band_hi, np.abs(phasor), source.per_unit(f), gains, tuning,
-                       owner, unspread, rbw)
+    return _SourcePart(lines, source, n, f, band_lo, band_hi, levels, readings, tuning, owner, unspread, rbw)
 
 
-def _decoupling_columns(board: Board, part: _SourcePart, own: dict, share: dict, limit: dict, span_hz) -> dict:
-    """|Z_dec|, suppression, the largest |Z_dec| that keeps the guard band, and the rail flags.
+def _escape_share(board: Board, part: _SourcePart, rail: str, i: np.ndarray) -> np.ndarray:
+    """The power fraction of rows ``i`` of this source's reading that passes through escape paths of ``rail``."""
+    escaping = np.zeros(i.shape)
+    if part.source.rail != rail or part.f.size == 0:
+        return escaping
+    total = part.total[i]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for p, g in part.readings.items():
+            if board.paths[p].input == "escape":
+                escaping += (g[i] / total) ** 2
+    return np.nan_to_num(escaping)
 
-    The escape paths' readings scale with |Z_dec / (Z_dec + Z_path)|.  Holding
-    the other paths fixed, the escape part may rise to what the limit minus the
-    guard band leaves; inverting the divider of the dominant escape path (with
-    the present phase of Z_dec) gives the required |Z_dec|.
+
+def _nearest(sorted_hz: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Index of the nearest value of ``sorted_hz`` to each of ``x``."""
+    i = np.clip(np.searchsorted(sorted_hz, x), 1, max(sorted_hz.size - 1, 1))
+    left = np.clip(i - 1, 0, sorted_hz.size - 1)
+    right = np.clip(i, 0, sorted_hz.size - 1)
+    return np.where(np.abs(x - sorted_hz[left]) <= np.abs(sorted_hz[right] - x), left, right)
+
+
+def _decoupling_columns(board: Board, parts: list[_SourcePart], k: int, readings, best: dict, limit: dict,
+                        span_hz) -> dict:
+    """|Z_dec|, its worst value within the part tolerances, suppression, the required |Z_dec|, and the rail flags.
+
+    Required impedance: at the tuning point where the row reads most (per detector), every source's reading
+    there is split into what passes through escape paths of this rail (E, which scales with the escape
+    fraction) and the rest (O: other paths, other rails, sources without a rail).  The escape part may rise
+    to sqrt(T^2 - O^2) with T the limit minus the guard band; inverting the escape fraction of the row's
+    dominant escape path (at the present phase of Z_dec) gives the largest |Z_dec| that keeps the row there.
+    Contributions are split in power, so sources that add in amplitude (a shared reference) count their
+    coherent excess as fixed: the answer errs low, on the safe side.
     """
+    part = parts[k]
     source, f, rows = part.source, part.f, part.n.size
     none = np.full(rows, np.nan)
     flags = {name: np.zeros(rows, bool) for name in (DECOUPLING_INSUFFICIENT, ABOVE_TARGET, NEAR_ANTI_RESONANCE)}
+    empty = dict(decoupling_impedance_ohm=none, decoupling_impedance_max_ohm=none, suppression_db=none,
+                 required_impedance_ohm=none, flags=flags)
     if source.rail is None:
-        return dict(decoupling_impedance_ohm=none, suppression_db=none, required_impedance_ohm=none, flags=flags)
+        return empty
     rail = board.rails[source.rail]
     z_dec = rail.decoupling_impedance(f)
     escaping = [p for p in source.paths if board.paths[p].input == "escape"]
@@ -290,85 +363,50 @@ def _decoupling_columns(board: Board, part: _SourcePart, own: dict, share: dict,
         fractions = {p: _escape(board, source, p, f) for p in escaping}
         suppression = np.min([-20 * np.log10(np.abs(d)) for d in fractions.values()], axis=0)
     else:  # no escape path: against a short at the connector
-        suppression = -20 * np.log10(np.abs(escape_fraction(z_dec, rail.supply_impedance(f))))
+        suppression = -20 * np.log10(np.abs(rail.escape(f, np.zeros(f.shape))))
     required = np.full(rows, np.inf)
     if escaping:
-        dominant = max(escaping, key=lambda p: np.nanmax(share[p]) if np.isfinite(share[p]).any() else -1)
+        total = part.total
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = {p: np.nan_to_num(part.readings[p] / total) for p in escaping}
+        dominant = max(escaping, key=lambda p: np.nanmax(share[p]) if share[p].size else -1)
         d_now = np.abs(fractions[dominant])
-        z_path = rail.supply_impedance(f) + board.paths[dominant].termination(f)
-        for det in own:
+        coefficients = rail.escape_coefficients(f, board.paths[dominant].termination(f))
+        for det, (value, index) in best.items():
+            found = index >= 0
+            escape = np.zeros(rows)
+            for s, other in enumerate(parts):
+                r_s = np.where(found, readings.per_source[s][det][np.maximum(index, 0)], 0.0)
+                if other is part:
+                    e_s = _escape_share(board, other, rail.name, np.arange(rows))
+                elif other.f.size:
+                    e_s = _escape_share(board, other, rail.name,
+                                        _nearest(other.f, readings.points[np.maximum(index, 0)]))
+                else:
+                    continue
+                escape += r_s**2 * e_s
             target = from_db(limit[det] - board.guard_band_db, 1e-6)
-            escape = np.sqrt(sum((own[det] * share[p]) ** 2 for p in escaping))
-            other = np.sqrt(sum((own[det] * share[p]) ** 2 for p in source.paths if p not in escaping))
             with np.errstate(invalid="ignore", divide="ignore"):
-                allowed = np.sqrt(np.maximum(target**2 - other**2, 0.0)) / escape
-                root = impedance_for_escape(allowed * d_now, z_dec, z_path)
-            required = np.where(np.isfinite(target) & (escape > 0), np.fmin(required, root), required)
+                fixed = np.maximum(value**2 - escape, 0.0)
+                allowed = np.sqrt(np.maximum(target**2 - fixed, 0.0)) / np.sqrt(escape)
+                root = impedance_for_escape(allowed * d_now, z_dec, *coefficients)
+            ok = found & np.isfinite(target) & (escape > 0)
+            required = np.where(ok, np.fmin(required, root), required)
     required = np.where(np.isinf(required), np.nan, required)
+    worst = rail.worst_impedance(f)
     flags[DECOUPLING_INSUFFICIENT] = np.abs(z_dec) > np.nan_to_num(required, nan=np.inf)
+    flags[NEAR_ANTI_RESONANCE] = worst > np.nan_to_num(required, nan=np.inf)
     if rail.target_ohm is not None:
-        flags[ABOVE_TARGET] = np.abs(z_dec) > rail.target_ohm
-    grid = np.geomspace(span_hz[0] / 10, span_hz[1] * 2, 4000)
-    for _, _, lo, hi in anti_resonances(grid, rail.decoupling_impedance(grid)):
-        flags[NEAR_ANTI_RESONANCE] |= (f >= lo) & (f <= hi)
+        flags[ABOVE_TARGET] = (np.abs(z_dec) > rail.target_ohm) & (f <= rail.target_up_to_hz)
     flags = {k: v & part.live for k, v in flags.items()}
-    return dict(decoupling_impedance_ohm=np.abs(z_dec), suppression_db=suppression, required_impedance_ohm=required,
-                flags=flags)
-
-
-def _combine(per_source: list[dict[str, np.ndarray]], references: list[str | None], detectors):
-    """Sources sharing a reference add in amplitude (worst case); the groups add in power."""
-    groups: dict[object, dict[str, np.ndarray]] = {}
-    for k, (reading, ref) in enumerate(zip(per_source, references)):
-        key = ref if ref is not None else ("own", k)
-        if key in groups:
-            groups[key] = {d: groups[key][d] + reading[d] for d in detectors}
-        else:
-            groups[key] = dict(reading)
-    return {d: np.sqrt(sum(g[d] ** 2 for g in groups.values())) for d in detectors}
-
-
-def _row_max(values: np.ndarray, owner: np.ndarray, rows: int) -> np.ndarray:
-    """Maximum of each row's tuning-point values, ignoring NaN (NaN where a row has no value)."""
-    out = np.full(rows, -np.inf)
-    np.fmax.at(out, owner, values)
-    return np.where(np.isneginf(out), np.nan, out)
+    return dict(decoupling_impedance_ohm=np.abs(z_dec), decoupling_impedance_max_ohm=worst,
+                suppression_db=suppression, required_impedance_ohm=required, flags=flags)
 
 
 def _read_at(sources: list[SourceLines], tuning: np.ndarray, detectors):
     """Each source's readings at the tuning frequencies, and all sources combined."""
     per_source = [sweep(s.line_hz, s.line_amplitude, s.grid_hz, tuning, detectors) for s in sources]
-    return per_source, _combine(per_source, [s.reference for s in sources], detectors)
-
-
-def _refinement(part: _SourcePart, combined_here: dict[str, np.ndarray]):
-    """Extra tuning points a quarter RBW either side of each local maximum within 1.5 dB of its row's best.
-
-    A reading varies smoothly over a tuning step of half the RBW, but its maximum
-    can fall between two steps (by up to about 1.5 dB at the edges of a spread
-    band); the quarter-RBW points around every candidate peak find it.
-    """
-    if part.source.spread is None or part.tuning.size == 0:
-        return np.array([]), np.array([], dtype=np.int64)
-    owner = part.owner
-    same_prev = np.concatenate([[False], owner[1:] == owner[:-1]])
-    same_next = np.concatenate([owner[:-1] == owner[1:], [False]])
-    keep = np.zeros(owner.size, bool)
-    for value in combined_here.values():  # each detector may peak elsewhere
-        value = np.nan_to_num(value)
-        prev = np.where(same_prev, np.roll(value, 1), -np.inf)
-        nxt = np.where(same_next, np.roll(value, -1), -np.inf)
-        best = np.nan_to_num(_row_max(value, owner, part.n.size))
-        keep |= (value >= prev) & (value >= nxt) & (value > 0) & (value >= best[owner] * 10 ** (-1.5 / 20))
-    rows = owner[keep]
-    step = part.rbw[rows] / 4
-    points = np.concatenate([part.tuning[keep] - step, part.tuning[keep] + step])
-    owners = np.concatenate([rows, rows])
-    # stay inside each row's own tuning range
-    lo = (part.band_lo - part.rbw / 2)[owners]
-    hi = (part.band_hi + part.rbw / 2)[owners]
-    inside = (points >= lo) & (points <= hi)
-    return points[inside], owners[inside]
+    return per_source, combine(per_source, [s.reference for s in sources], detectors)
 
 
 def _overlap_flags(parts: list[_SourcePart]) -> list[dict[str, np.ndarray]]:
@@ -414,49 +452,37 @@ def estimate(board: Board, reuse: Reuse | None = None) -> Estimate:
     parts = [reuse.part(board, source, lo, hi) if reuse is not None else _source_part(board, source, lo, hi)
              for source in board.sources]
     lines = [p.lines for p in parts]
-
-    coarse = _cat([p.tuning for p in parts])
-    coarse_seg = np.cumsum([0] + [p.tuning.size for p in parts])
-    per_source, combined = _read_at(lines, coarse, detectors)
-    refined = [_refinement(p, {d: combined[d][coarse_seg[k]:coarse_seg[k + 1]] for d in detectors})
-               for k, p in enumerate(parts)]
-    fine = _cat([r[0] for r in refined])
-    fine_seg = np.cumsum([0] + [r[0].size for r in refined])
-    per_source_fine, combined_fine = _read_at(lines, fine, detectors)
-    limits_coarse = board.limit.levels(coarse) if coarse.size else {d: np.array([]) for d in detectors}
-    limits_fine = board.limit.levels(fine) if fine.size else {d: np.array([]) for d in detectors}
+    tunings = [dict(points=p.tuning, owner=p.owner, lo_hz=p.band_lo - p.rbw / 2, hi_hz=p.band_hi + p.rbw / 2,
+                    rbw_hz=p.rbw, searched=p.source.spread is not None) for p in parts]
+    read = read_rows(lines, [s.reference for s in lines], tunings, detectors)
     overlaps = _overlap_flags(parts)
-
     columns = []
-    for k, part in enumerate(parts):
-        a, b = slice(coarse_seg[k], coarse_seg[k + 1]), slice(fine_seg[k], fine_seg[k + 1])
-        owner = np.concatenate([part.owner, refined[k][1]])
-
-        def per_row(coarse_values, fine_values, a=a, b=b, owner=owner, rows=part.n.size):
-            return _row_max(np.concatenate([coarse_values[a], fine_values[b]]), owner, rows)
-
-        own = {d: per_row(per_source[k][d], per_source_fine[k][d]) for d in detectors}
-        columns.append(_source_columns(board, part, own, {d: per_row(combined[d], combined_fine[d]) for d in detectors},
-                                       {d: -per_row(-limits_coarse[d], -limits_fine[d]) for d in detectors},
-                                       overlaps[k], (lo, hi)))
-    rows = assemble_rows(columns, detectors, board.guard_band_db)
-    return Estimate(board, (lo, hi), rows, tuple(lines))
+    for k, (part, rows) in enumerate(zip(parts, read)):
+        n = part.n.size
+        best = {d: rows.best(d) for d in detectors}
+        own = {d: row_max(rows.per_source[k][d], rows.owner, n) for d in detectors}
+        levels = board.limit.levels(rows.points) if rows.points.size else {d: np.array([]) for d in detectors}
+        # the lowest limit over the row's tuning points (NaN where no line of that detector applies)
+        limit = {d: -row_max(-levels[d], rows.owner, n) for d in detectors}
+        columns.append(_source_columns(board, parts, k, rows, own, best, limit, overlaps[k], (lo, hi)))
+    return Estimate(board, (lo, hi), assemble_rows(columns, detectors, board.guard_band_db), tuple(lines))
 
 
-def _source_columns(board: Board, part: _SourcePart, own: dict, combined: dict, limit: dict, overlaps: dict,
-                    span_hz) -> dict:
+def _source_columns(board: Board, parts: list[_SourcePart], k: int, readings, own: dict, best: dict, limit: dict,
+                    overlaps: dict, span_hz) -> dict:
     """The columns of one source's rows.
 
-    ``own`` is the source's own reading per detector, ``combined`` what the
-    receiver reads there from all sources, ``limit`` the lowest limit over the
-    row's tuning points (NaN where no line of that detector applies).
+    ``own`` is the source's own reading per detector, ``best`` what the receiver reads at the row's best
+    tuning point from all sources (and where), ``limit`` the lowest limit over the row's tuning points (NaN
+    where no line of that detector applies).
     """
+    part = parts[k]
     rows, detectors = part.n.size, board.limit.detectors
     # a harmonic on a spectral null has no reading of its own, whatever else sits at its frequency
-    reading = {d: np.where(part.live, combined[d], 0.0) for d in detectors}
-    total = _total_gain(part.gains)
+    reading = {d: np.where(part.live, best[d][0], 0.0) for d in detectors}
+    total = part.total
     with np.errstate(invalid="ignore", divide="ignore"):
-        share = {p: g / total for p, g in part.gains.items()}
+        share = {p: g / total for p, g in part.readings.items()}
     reduction = {d: np.full(rows, np.nan) for d in detectors}
     if part.unspread is not None:
         plain = sweep(part.unspread.line_hz, part.unspread.line_amplitude, part.unspread.grid_hz, part.f, detectors)
@@ -464,19 +490,31 @@ def _source_columns(board: Board, part: _SourcePart, own: dict, combined: dict, 
     flags = _path_flags(board, part.source, part.f)
     flags[SPECTRAL_NULL] = ~part.live
     flags.update(overlaps)
-    rail = _decoupling_columns(board, part, own, share, limit, span_hz)
+    rail = _decoupling_columns(board, parts, k, readings, best, limit, span_hz)
     flags.update(rail.pop("flags"))
+    source = part.source
+    cables = cable_currents(board, source, part.f, part.levels)
+    exact = source.exact(part.n)
+    bound = source.bounds(part.f)
     return dict(
-        source=np.full(rows, part.source.name, dtype=object),
+        source=np.full(rows, source.name, dtype=object),
         harmonic=part.n,
         frequency_hz=part.f,
         band_lo_hz=np.asarray(part.band_lo, dtype=float),
         band_hi_hz=np.asarray(part.band_hi, dtype=float),
-        spread=np.full(rows, part.source.spread is not None),
-        line_dbuv=db_micro(part.magnitude * part.per_unit["voltage"]),
-        line_dbua=db_micro(part.magnitude * part.per_unit["current"]),
-        path_readings={p: {d: db_micro(own[d] * share[p]) for d in detectors} for p in part.gains},
+        spread=np.full(rows, source.spread is not None),
+        harmonics=np.full(rows, source.mode, dtype=object),
+        line_dbuv=db_micro(part.levels["voltage"]),
+        line_dbua=db_micro(part.levels["current"]),
+        rail_dbua=db_micro(part.levels["rail"]) if source.rail is not None else np.full(rows, np.nan),
+        line_envelope_dbuv=db_micro(bound["voltage"]),
+        line_exact_dbuv=db_micro(exact["voltage"]),
+        line_envelope_dbua=db_micro(bound["current"]),
+        line_exact_dbua=db_micro(exact["current"]),
+        path_readings={p: {d: db_micro(own[d] * share[p]) for d in detectors} for p in part.readings},
+        cable_current_dbua={p: db_micro(i) for p, i in cables.items()},
         readings={d: db_micro(reading[d]) for d in detectors},
+        own_readings={d: db_micro(np.where(part.live, own[d], 0.0)) for d in detectors},
         spread_reduction_db=reduction,
         limits=limit,
         flags=flags,
@@ -508,17 +546,12 @@ def swept_spectrum(est: Estimate, detectors=SWEPT_DETECTORS) -> dict[str, Trace]
 
 
 def envelope_traces(est: Estimate, frequency_hz) -> dict[str, Trace]:
-    """Each source's unspread spectral envelope carried through its paths, in dB of the limit's unit.
-
-    Sources without an envelope (see :meth:`emispec.sources.Source.envelope`) are left out.
-    """
+    """Each source's unspread spectral envelope carried through its paths, in dB of the limit's unit."""
     f = np.asarray(frequency_hz, dtype=float)
     out = {}
     for source in est.board.sources:
-        bound = source.envelope(f)
-        if bound is not None:
-            level = db_micro(bound * _total_gain(source_gains(est.board, source, f)))
-            out[source.name] = Trace(f, level, est.board.limit.unit, origin="envelope")
+        level = db_micro(_total_gain(path_readings(est.board, source, f, source.bounds(f)), source.combine))
+        out[source.name] = Trace(f, level, est.board.limit.unit, origin="envelope")
     return out
 
 

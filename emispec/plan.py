@@ -40,9 +40,14 @@ def plan_rows(est: Estimate, everything: bool = False) -> list[dict]:
         if overlaps:
             notes.append(f"shares the RBW with {', '.join(overlaps)}: switch sources off to tell them apart")
         if "decoupling-insufficient" in flags:
-            notes.append("rail current escapes the decoupling: check it with a current probe on the cable")
+            notes.append("rail current escapes the decoupling")
+        cables = r.cable_current_dbua
+        for cable in est.source_paths[str(r.source[i])]:
+            if cable in cables and np.isfinite(cables[cable][i]):
+                notes.append(f"current probe on {cable} at its connector (the cable's base): expect "
+                             f"{cables[cable][i]:.1f} dBuA common mode")
         if "near-anti-resonance" in flags:
-            notes.append("near a decoupling anti-resonance: sensitive to part values")
+            notes.append("decoupling near an anti-resonance: within the part tolerances it may not hold")
         if "near-field" in flags:
             notes.append("near field at this distance: estimate less certain")
         out.append({

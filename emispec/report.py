@@ -99,6 +99,8 @@ def result_dict(est: Estimate) -> dict:
             "detectors": list(limit.detectors),
         },
         "guard_band_db": board.guard_band_db,
+        "paths_combine": {source.name: source.combine for source in board.sources},
+        "harmonics": {source.name: source.mode for source in board.sources},
         "rails": [rail_view(est, name).summary for name in board.rails],
         "span_hz": [est.span_hz[0], est.span_hz[1]],
         "rows": [json_row(est, columns, values, i) for i in range(len(est.rows))],
@@ -170,6 +172,7 @@ def markdown_text(est: Estimate, count: int = 50) -> str:
         + (f" at {lim.distance_m:g} m" if lim.distance_m else "")
         + f", {lim.unit}; source: {_md_escape(lim.source)}",
         f"- Guard band: {b.guard_band_db:g} dB; analysed {est.span_hz[0] / 1e6:g} to {est.span_hz[1] / 1e6:g} MHz",
+        f"- {_combination_line(b)}",
         f"- emispec {__version__}",
         "",
         f"## Worst {min(count, len(est.rows))} of {len(est.rows)} harmonics",
@@ -324,17 +327,32 @@ def variants_csv_text(variants) -> str:
 
 
 ASSUMPTIONS = (
-    "Clock harmonics: exact Fourier series of a trapezoid with linear edges (edge times converted to 0-100 %).",
+    "Harmonic levels: the spectral envelope (the upper bound of the trapezoid series, no sinc nulls) unless a source "
+    "asks for the exact series, with linear, RC or Gaussian edges.",
+    "Rail current: what a driver draws from its supply, the positive part of its load current (the charging "
+    "current of a capacitive load); core currents as triangular pulse trains.",
     "Spread spectrum: each harmonic frequency-modulated with n times the deviation; lines from an FFT of one "
     "modulation period.",
     "Receiver: CISPR 16-1-1 bands and 6 dB bandwidths with a Gaussian filter; PK, meter-weighted AV and the QP "
     "detector solved to steady state; a CW sine reads its RMS value.",
     "Radiation: electrically small loops and short cables (lambda/2 cap) in the far field, direction of maximum "
-    "radiation, referred to the limit distance by inverse distance; ground reflection as set per path.",
-    "Decoupling: parts in parallel at the IC pins, lumped; escaping current by the current divider into the supply "
-    "path and its termination (LISN or common-mode impedance).",
-    "Paths of one source add in power; sources add in power unless they share a reference (then in amplitude).",
+    "radiation, referred to the limit distance by inverse distance; +6 dB ground reflection up to 1 GHz (none "
+    "above, over the absorber-lined floor), unless a path sets it.",
+    "Decoupling: parts in parallel at the IC pins (with spreading inductance), the package and on-die capacitance "
+    "where given, lumped; escaping current by the current divider into the supply path and its termination (LISN "
+    "or common-mode impedance); anti-resonances searched within the part tolerances.",
+    "Sources add in power unless they share a reference (then in amplitude).",
 )
+
+
+def _combination_line(board) -> str:
+    modes = {s.combine for s in board.sources}
+    if modes == {"power"}:
+        return "Paths of one source add in power (unknown relative phase)."
+    if modes == {"coherent"}:
+        return "Paths of one source add in amplitude (coherent, the worst case)."
+    coherent = ", ".join(s.name for s in board.sources if s.combine == "coherent")
+    return f"Paths of one source add in power, except for {coherent} (in amplitude, the worst case)."
 
 _VERDICT_CLASS = {"fails": "FAILS", "marginal": "MARGINAL", "meets": "MEETS", "no-data": "NO"}
 
@@ -407,7 +425,7 @@ def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 60, vi
         f"<li>Guard band {b.guard_band_db:g} dB; analysed {est.span_hz[0] / 1e6:g} to {est.span_hz[1] / 1e6:g} MHz; "
         f"{len(b.clocks)} clocks, {len(b.currents)} current sources, {len(b.rails)} rails, {len(b.paths)} paths</li>",
         f"<li>emispec {html.escape(__version__)}</li></ul><ul>",
-        *(f"<li>{html.escape(a)}</li>" for a in ASSUMPTIONS),
+        *(f"<li>{html.escape(a)}</li>" for a in (*ASSUMPTIONS, _combination_line(b))),
         "</ul>",
         f"<h2>Margin table (worst {min(rows, len(est.rows))} of {len(est.rows)}, {html.escape(lim.unit)})</h2>",
         _html_rows_table(est, rows),

@@ -3,14 +3,20 @@
 A source has a fundamental frequency f0 (its unspread line spacing), an
 optional spread-spectrum modulation, an optional shared ``reference`` (sources
 naming the same reference add in amplitude), the rail it draws from, and the
-coupling paths it drives.  What the pipeline asks of it:
+coupling paths it drives.  It puts three quantities into its paths, each a
+harmonic series at n f0 (complex RMS, NaN where it has none):
 
-- :meth:`Source.phasors`: the complex RMS harmonics of its own quantity (the
-  voltage of a clock, the current of a pulse train) at n f0;
-- :meth:`Source.per_unit`: the voltage and the current it puts into its paths
-  per unit of that quantity (a clock's load current is V / Z_load; a current
-  source has no voltage);
-- :meth:`Source.envelope`: an upper bound of its harmonics, for plots.
+- ``voltage``: a clock's output voltage;
+- ``current``: the current in the loop it drives (a clock's load current, a
+  pulse train's current);
+- ``rail``: the current it draws from its supply rail (a clock's charging
+  current, the positive part of its load current; a pulse train's current).
+
+What the pipeline asks of it: :meth:`Source.harmonics` (the levels the margins
+use), :meth:`Source.exact` (the exact series), :meth:`Source.bounds` (an upper
+bound of each quantity at any frequency, with no spectral nulls) and ``mode``:
+``"envelope"`` (margins use the bound: a pre-compliance estimate must not hide
+emission in a null that a real edge does not have) or ``"exact"``.
 
 Each source kind also declares its board-file keys and reads its own table
 (:meth:`from_table`); :data:`SOURCE_SECTIONS` maps a board-file array
@@ -28,10 +34,11 @@ import numpy as np
 
 from .schema import Key, TableReader
 from .spread import Spread
-from .waveform import (EDGE_FRACTION, Trapezoid, WaveformError, envelope, full_edge_time, harmonic_phasors,
-                       load_current, triangle_pulse_phasors)
+from .waveform import (EDGE_FRACTION, EDGE_SHAPES, Trapezoid, WaveformError, edge_parameter, full_edge_time,
+                       shaped_phasors, spectrum_envelope, supply_current_bound,
+                       supply_current_phasors, triangle_pulse_envelope, triangle_pulse_phasors)
 
-__all__ = ["Source", "Clock", "Current", "SOURCE_SECTIONS", "BoardContext"]
+__all__ = ["Source", "Clock", "Current", "SOURCE_SECTIONS", "BoardContext", "QUANTITIES", "MODES"]
 
 
 @dataclass(frozen=True)
@@ -45,6 +52,8 @@ class BoardContext:
     rails: dict | None = None
     clocks: dict | None = None
     files: object = None
+    harmonics: str = "envelope"
+    combine: str = "power"
 
 
 class Source(Protocol):
@@ -58,11 +67,23 @@ class Source(Protocol):
     rail: str | None
     paths: tuple[str, ...]
 
-    def phasors(self, n: np.ndarray) -> np.ndarray: ...
+    mode: str
+    combine: str
 
-    def per_unit(self, frequency_hz) -> dict[str, np.ndarray]: ...
+    def harmonics(self, n: np.ndarray) -> dict[str, np.ndarray]: ...
 
-    def envelope(self, frequency_hz) -> np.ndarray | None: ...
+    def exact(self, n: np.ndarray) -> dict[str, np.ndarray]: ...
+
+    def bounds(self, frequency_hz) -> dict[str, np.ndarray]: ...
+
+
+QUANTITIES = ("voltage", "current", "rail")
+MODES = ("envelope", "exact")
+
+
+def _at_bound(exact: dict[str, np.ndarray], bound: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """The bound's magnitude with the exact series' phase (phases matter where lines add inside one RBW)."""
+    return {k: bound[k] * np.exp(1j * np.angle(exact[k])) for k in exact}
 
 
 def _path_names(r: TableReader, paths: dict) -> tuple[str, ...]:
@@ -95,11 +116,19 @@ _SPREAD = Key("spread", "table", schema=Spread.KEYS)
 _REFERENCE = Key("reference", "text")
 _DUTY = Key("duty_cycle", "ratio", default=0.5, low=0.0, high=1.0, high_open=True)
 _FREQUENCY = Key("frequency", "frequency", low=0.0, high=100e9)
+_HARMONICS = Key("harmonics", "choice", choices=MODES)
+COMBINES = ("power", "coherent")
+_COMBINE = Key("combine", "choice", choices=COMBINES)
 
 
 @dataclass(frozen=True)
 class Clock:
-    """A clock output: its trapezoidal waveform, its load and the paths it couples through."""
+    """A clock output: its waveform, its load, its supply rail and the paths it couples through.
+
+    ``wave`` is the linear-ramp trapezoid with the clock's 0-100 % equivalent edges (it checks that the edges
+    fit and gives Paul's envelope); ``edge_shape`` with ``rise`` and ``fall`` (the shape's own time parameters,
+    :func:`emispec.waveform.edge_parameter`) give the exact series of real edges.
+    """
 
     section: ClassVar[str] = "clock"
     KEYS: ClassVar[tuple[Key, ...]] = (
@@ -110,7 +139,8 @@ class Clock:
         Key("swing", "voltage", required=True, low=0.0),
         Key("load", "table", schema=(Key("resistance", "resistance", low=0.0),
                                      Key("capacitance", "capacitance", low=0.0))),
-        _PATHS, _RAIL, _SPREAD, _REFERENCE,
+        _PATHS, _RAIL, _SPREAD, _REFERENCE, _HARMONICS, _COMBINE,
+        Key("edge_shape", "choice", default="linear", choices=EDGE_SHAPES),
     )
 
     name: str
@@ -121,6 +151,11 @@ class Clock:
     spread: Spread | None = None
     reference: str | None = None
     rail: str | None = None
+    mode: str = "envelope"
+    edge_shape: str = "linear"
+    rise: float | None = None
+    fall: float | None = None
+    combine: str = "power"
 
     @property
     def has_load(self) -> bool:
@@ -130,22 +165,57 @@ class Clock:
     def frequency_hz(self) -> float:
         return self.wave.frequency_hz
 
-    def phasors(self, n: np.ndarray) -> np.ndarray:
-        """RMS complex voltage harmonics (exact trapezoid series)."""
-        return harmonic_phasors(self.wave, n) / np.sqrt(2)
+    def _edges(self) -> tuple[float, float]:
+        if self.edge_shape == "linear":
+            return self.wave.rise_s, self.wave.fall_s
+        return self.rise, self.fall
 
-    def per_unit(self, frequency_hz) -> dict[str, np.ndarray]:
-        """Voltage 1 and the load current per volt, 1 / |Z_load| (NaN without a load)."""
-        shape = np.shape(frequency_hz)
+    def _supply(self, n) -> np.ndarray:
+        if not self.has_load:
+            return np.full(np.shape(n), np.nan, dtype=complex)
+        rise, fall = self._edges()
+        return supply_current_phasors(self.wave, n, self.load_resistance_ohm, self.load_capacitance_f,
+                                      self.edge_shape, rise, fall)
+
+    def exact(self, n: np.ndarray) -> dict[str, np.ndarray]:
+        """Exact RMS series: voltage (Paul 2006, sec. 3.2, with the edge shape), load current V Y, supply current."""
+        rise, fall = self._edges()
+        voltage = shaped_phasors(self.wave, n, self.edge_shape, rise, fall) / np.sqrt(2)
+        f = np.asarray(n, dtype=float) * self.frequency_hz
+        current = voltage * self._load_phasor(f)
+        return {"voltage": voltage, "current": current, "rail": self._supply(n) / np.sqrt(2)}
+
+    def _load_phasor(self, f) -> np.ndarray:
+        """I / V of the load, 1 / (R + 1 / (j w C)) (NaN without a load)."""
+        if not self.has_load:
+            return np.full(np.shape(f), np.nan, dtype=complex)
+        z = np.zeros(np.shape(f), dtype=complex)
+        if self.load_resistance_ohm is not None:
+            z = z + self.load_resistance_ohm
+        if self.load_capacitance_f is not None:
+            z = z + 1 / (2j * np.pi * f * self.load_capacitance_f)
+        return 1 / z
+
+    def bounds(self, frequency_hz) -> dict[str, np.ndarray]:
+        """RMS upper bounds at any frequency: Paul's envelope for the voltage (with the edge shape's bound),
+        times |Y| for the load current, and the charging-pulse bound for the supply current."""
+        f = np.asarray(frequency_hz, dtype=float)
+        rise, fall = self._edges()
+        fastest = min(rise, fall)
+        voltage = spectrum_envelope(self.wave, f, self.edge_shape, fastest) / np.sqrt(2)
         if self.has_load:
-            current = load_current(np.ones(shape), frequency_hz, self.load_resistance_ohm, self.load_capacitance_f)
+            rail = supply_current_bound(self.wave, f, self.load_resistance_ohm, self.load_capacitance_f,
+                                        self.edge_shape, rise, fastest) / np.sqrt(2)
         else:
-            current = np.full(shape, np.nan)
-        return {"voltage": np.ones(shape), "current": current}
+            rail = np.full(f.shape, np.nan)
+        return {"voltage": voltage, "current": voltage * np.abs(self._load_phasor(f)), "rail": rail}
 
-    def envelope(self, frequency_hz) -> np.ndarray:
-        """RMS bound of the voltage harmonics (Paul 2006, sec. 3.2)."""
-        return envelope(self.wave, frequency_hz) / np.sqrt(2)
+    def harmonics(self, n: np.ndarray) -> dict[str, np.ndarray]:
+        """The levels the margins use: the exact series, or its bound at n f0 with the exact phase."""
+        exact = self.exact(n)
+        if self.mode == "exact":
+            return exact
+        return _at_bound(exact, self.bounds(np.asarray(n, dtype=float) * self.frequency_hz))
 
     @classmethod
     def from_table(cls, r: TableReader, ctx: BoardContext) -> Clock:
@@ -153,13 +223,20 @@ class Clock:
         swing = r.get("swing")
         duty = r.get("duty_cycle")
         edge = r.get("edge")
-        rise = full_edge_time(r.get("rise_time"), edge)
-        fall = full_edge_time(r.get("fall_time"), edge) if r.has("fall_time") else rise
+        rise_measured = r.get("rise_time")
+        fall_measured = r.get("fall_time") if r.has("fall_time") else rise_measured
+        rise, fall = full_edge_time(rise_measured, edge), full_edge_time(fall_measured, edge)
         try:
             wave = Trapezoid(frequency, swing, duty, rise, fall)
         except WaveformError as err:
             raise r.error("rise_time", f"{err}; allowed: (rise + fall)/2 <= min(duty, 1 - duty) / frequency",
                           r.table.get("rise_time")) from None
+        shape = r.get("edge_shape")
+        mode = r.get("harmonics") or ctx.harmonics
+        try:
+            rise_p, fall_p = (edge_parameter(t, edge, shape) for t in (rise_measured, fall_measured))
+        except WaveformError as err:
+            raise r.error("edge_shape", str(err), shape) from None
         spread = Spread.from_table(r.reader("spread", Spread.KEYS), frequency) if r.has("spread") else None
         resistance = capacitance = None
         if r.has("load"):
@@ -172,7 +249,8 @@ class Clock:
             if ctx.paths[p].input in ("current", "escape") and resistance is None and capacitance is None:
                 raise r.error("load", f"missing; path {p!r} needs the clock current, which needs a load")
         rail = _rail_name(r, ctx.rails, names, ctx.paths)
-        return cls(r.get("name"), wave, names, resistance, capacitance, spread, r.get("reference"), rail)
+        return cls(r.get("name"), wave, names, resistance, capacitance, spread, r.get("reference"), rail, mode,
+                   shape, rise_p, fall_p, r.get("combine") or ctx.combine)
 
 
 @dataclass(frozen=True)
@@ -185,7 +263,7 @@ class Current:
         Key("peak", "current", required=True, low=0.0),
         Key("width", "time", required=True, low=0.0),
         Key("per", "choice", default="cycle", choices=("cycle", "edge")),
-        _RAIL, _PATHS,
+        _RAIL, _PATHS, _HARMONICS, _COMBINE,
     )
 
     name: str
@@ -198,18 +276,26 @@ class Current:
     paths: tuple[str, ...]
     spread: Spread | None = None
     reference: str | None = None
+    mode: str = "envelope"
+    combine: str = "power"
 
-    def phasors(self, n: np.ndarray) -> np.ndarray:
-        """RMS complex current harmonics of the pulse train."""
-        return triangle_pulse_phasors(self.peak_a, self.width_s, self.frequency_hz, n, self.per, self.duty) / np.sqrt(2)
+    def exact(self, n: np.ndarray) -> dict[str, np.ndarray]:
+        """RMS complex harmonics of the pulse train: its current, drawn from the rail; no voltage."""
+        current = triangle_pulse_phasors(self.peak_a, self.width_s, self.frequency_hz, n, self.per,
+                                         self.duty) / np.sqrt(2)
+        return {"voltage": np.full(np.shape(n), np.nan, dtype=complex), "current": current, "rail": current}
 
-    def per_unit(self, frequency_hz) -> dict[str, np.ndarray]:
-        """Current 1 per ampere; a current source has no voltage (NaN)."""
-        shape = np.shape(frequency_hz)
-        return {"voltage": np.full(shape, np.nan), "current": np.ones(shape)}
+    def bounds(self, frequency_hz) -> dict[str, np.ndarray]:
+        """RMS bound of the triangular pulse train at any frequency (:func:`triangle_pulse_envelope`)."""
+        f = np.asarray(frequency_hz, dtype=float)
+        current = triangle_pulse_envelope(self.peak_a, self.width_s, self.frequency_hz, f, self.per) / np.sqrt(2)
+        return {"voltage": np.full(f.shape, np.nan), "current": current, "rail": current}
 
-    def envelope(self, frequency_hz) -> None:
-        return None
+    def harmonics(self, n: np.ndarray) -> dict[str, np.ndarray]:
+        exact = self.exact(n)
+        if self.mode == "exact":
+            return exact
+        return _at_bound(exact, self.bounds(np.asarray(n, dtype=float) * self.frequency_hz))
 
     @classmethod
     def from_table(cls, r: TableReader, ctx: BoardContext) -> Current:
@@ -229,6 +315,7 @@ class Current:
             duty = r.get("duty_cycle")
             spread = Spread.from_table(r.reader("spread", Spread.KEYS), frequency) if r.has("spread") else None
             reference = r.get("reference")
+        mode = r.get("harmonics") or ctx.harmonics
         per = r.get("per")
         spacing = (min(duty, 1 - duty) if per == "edge" else 1.0) / frequency
         width = r.get("width", high=spacing)
@@ -238,7 +325,8 @@ class Current:
             if ctx.paths[p].input == "voltage":
                 raise r.error("paths", f"path {p!r} reads a voltage; a current source has none", list(names))
         rail = _rail_name(r, ctx.rails, names, ctx.paths, required=True)
-        return cls(r.get("name"), frequency, duty, peak, width, per, rail, names, spread, reference)
+        return cls(r.get("name"), frequency, duty, peak, width, per, rail, names, spread, reference, mode,
+                   r.get("combine") or ctx.combine)
 
 
 #: Board-file arrays of tables that define sources, and the class each entry becomes.

@@ -151,7 +151,7 @@ def to_db(amplitude: np.ndarray | float, reference: float = 1.0) -> np.ndarray:
     A zero amplitude is a true spectral null of the model; NaN keeps it out of
     maxima and sorting and turns into ``null`` at the output edge.
     """
-    amplitude = np.abs(np.asarray(amplitude, dtype=float))
+    amplitude = np.abs(np.asarray(amplitude)).astype(float)  # complex phasors read their magnitude
     with np.errstate(divide="ignore"):
         level = 20.0 * np.log10(amplitude / reference)
     return np.where(amplitude > 0, level, np.nan)

@@ -121,3 +121,33 @@ def test_paths_use_the_right_source_quantity():
     mains = ConductedPath("m")
     assert mains.reading(f, source, None) == pytest.approx(escape * np.abs(mains.termination(f)))
     assert ConductedPath("m", measure="current").reading(f, source, None) == pytest.approx(escape)
+
+
+def test_ground_reflection_up_to_1_ghz_only():
+    # Source: CISPR 16-1-4 and ANSI C63.4: below 1 GHz the site has a reflecting ground plane (+6 dB in phase,
+    # Ott 2009 ch. 12); above 1 GHz the floor between antenna and EUT is covered with absorber (no reflection)
+    from emispec.coupling import reflection_factor
+
+    f = np.array([30e6, 999e6, 1e9, 1.01e9, 6e9])
+    np.testing.assert_array_equal(reflection_factor(f), [2, 2, 2, 1, 1])
+    np.testing.assert_array_equal(reflection_factor(f, True), [2] * 5)
+    np.testing.assert_array_equal(reflection_factor(f, False), [1] * 5)
+    assert loop_field(2e9, 1e-3, 1e-4, 3.0) == pytest.approx(loop_field(2e9, 1e-3, 1e-4, 3.0, ground_reflection=False))
+    assert cable_field(500e6, 1e-6, 0.1, 3.0) == pytest.approx(2 * cable_field(500e6, 1e-6, 0.1, 3.0, False))
+
+
+def test_a_transfer_table_taken_in_the_near_field_is_flagged():
+    # Source: Paul 2006 sec. 8.1: the field falls as 1/r only beyond lambda / 2 pi (0.48 m at 100 MHz), so a
+    # probe table taken at 10 cm is not scaled to 3 m by inverse distance there without a flag
+    path = TransferPath("probe", "voltage", Trace(np.array([1e6, 6e9]), np.array([-60.0, -60.0]), outside="hold"),
+                        distance_m=0.1)
+    flags = path.flags(np.array([100e6, 1e9]), 3.0)["near-field"]
+    assert flags.tolist() == [True, False]
+    at_limit = TransferPath("probe", "voltage", path.gain)  # taken at the limit's distance
+    assert at_limit.flags(np.array([10e6, 100e6]), 3.0)["near-field"].tolist() == [True, False]
+
+
+def test_cable_common_mode_current_is_the_ratio_times_its_drive():
+    # Source: the cable model's definition (Ott 2009 ch. 12, I_cm the total common-mode current)
+    cable = CablePath("c", 1.0, ratio=1e-3)
+    assert cable.common_mode_current([1e8], {"current": np.array([0.02])})[0] == pytest.approx(2e-5)

@@ -10,6 +10,7 @@ import pytest
 from emispec.decoupling import (
     Capacitor,
     Measured,
+    Package,
     Plane,
     Rail,
     SeriesRL,
@@ -18,11 +19,12 @@ from emispec.decoupling import (
     escape_fraction,
     lisn_impedance,
     network_impedance,
-    read_impedance_table,
-    read_touchstone,
     self_resonance_hz,
+    spreading_inductance,
     target_impedance,
 )
+
+from emispec.readers import read_impedance_table, read_touchstone  # noqa: E402
 
 NGSPICE = shutil.which("ngspice")
 needs_ngspice = pytest.mark.skipif(NGSPICE is None, reason="ngspice not found (Debian package ngspice)")
@@ -54,6 +56,8 @@ def spice_parts(parts, node="pin") -> str:
                       f"Cc{k} b{k} 0 {part.capacitance_f * m}"]
         elif isinstance(part, Plane):
             lines.append(f"Cp{k} {node} 0 {part.capacitance_f}")
+            if part.loss_tangent:  # G = w C tan(delta), frequency-dependent through ngspice's 'hertz'
+                lines.append(f"Rp{k} {node} 0 R = '1/(2*pi*hertz*{part.capacitance_f}*{part.loss_tangent})'")
         elif isinstance(part, SeriesRL):
             lines += [f"Rr{k} {node} r{k} {part.resistance_ohm}", f"Lr{k} r{k} 0 {part.inductance_h}"]
     return "\n".join(lines)
@@ -99,6 +103,77 @@ def test_escaping_current_into_the_lisn_matches_ngspice(tmp_path, series_ohm):
     assert np.max(np.abs(20 * np.log10(np.abs(ours) / np.abs(i_escape)))) < 0.01
     port = np.abs(ours) * np.abs(lisn_impedance(f, series_ohm))
     assert np.max(np.abs(20 * np.log10(port / np.abs(v_port)))) < 0.01
+
+
+PACKAGED = Rail(
+    "core",
+    1.0,
+    (
+        ("capacitor", Capacitor(100e-9, 0.015, 0.6e-9, 0.4e-9, 4, spreading_h=spreading_inductance(0.1e-3, 5e-3))),
+        ("capacitor", Capacitor(10e-6, 0.005, 1.1e-9, 0.5e-9, 1)),
+        ("plane", Plane(60e-4, 0.1e-3, 4.2, loss_tangent=0.02)),
+        ("regulator", SeriesRL(0.01, 20e-9)),
+    ),
+    SeriesRL(0.05, 25e-9),
+    package=Package(0.4e-9, 0.01, 5e-9, 0.02),
+)
+
+
+@needs_ngspice
+def test_package_lossy_plane_and_spreading_inductance_match_ngspice(tmp_path):
+    # Source: ngspice AC analysis of the same network: the switching current enters at the die (on-die C with its
+    # ESR), crosses the package R + L to the pins, where the board's parts sit (the capacitor's spreading
+    # inductance added to its own, the plane's dielectric loss as G = w C tan delta), and escapes into the LISN
+    pkg = PACKAGED.package
+    body = "\n".join([
+        "I1 0 die AC 1", "Rdc die 0 1e12", f"Rd die d1 {pkg.die_esr_ohm}", f"Cd d1 0 {pkg.die_capacitance_f}",
+        f"Rk die k1 {pkg.resistance_ohm}", f"Lk k1 pin {pkg.inductance_h}",
+        spice_parts([p for _, p in PACKAGED.parts]),
+        "Vsense pin s0 DC 0", "Rs s0 s1 0.05", "Ls s1 conn 25n", "Rl conn l1 5", "Ll l1 0 50u", "Rport conn 0 50",
+    ])
+    f, (i_escape,) = ngspice_ac(body, ["i(vsense)"], tmp_path)
+    ours = PACKAGED.escape(f, lisn_impedance(f))
+    assert np.max(np.abs(20 * np.log10(np.abs(ours) / np.abs(i_escape)))) < 0.01
+    assert np.max(np.abs(np.angle(ours / i_escape))) < 1e-3
+
+
+def test_spreading_inductance_of_two_vias_in_a_plane_pair():
+    # Source: H. Johnson, "Parasitic inductance of bypass capacitors", EDN 2003: L = (mu0 / pi) h ln(2 s / D);
+    # mu0 / pi = 0.4 nH/mm.  h = 0.1 mm, s = 5 mm, D = 0.3 mm: 0.04 nH/mm x ... = 0.1125 nH (hand calculation)
+    assert spreading_inductance(0.1e-3, 5e-3, 0.3e-3) == pytest.approx(0.4e-9 * 0.1 * np.log(2 * 5 / 0.3), rel=1e-6)
+    assert spreading_inductance(0.1e-3, 5e-3, 0.3e-3) == pytest.approx(0.1403e-9, abs=0.0005e-9)
+
+
+def test_dielectric_loss_lowers_the_anti_resonance_peak():
+    # Source: a lossy capacitor's admittance j w C (1 - j tan delta) (Pozar, Microwave Engineering, sec. 1.3);
+    # the plane-capacitor anti-resonance is damped by the loss
+    lossless = Rail("r", 1.0, (("capacitor", Capacitor(100e-9, 0.01, 1e-9)), ("plane", Plane(60e-4, 0.1e-3, 4.2))),
+                    SeriesRL())
+    lossy = Rail("r", 1.0, (("capacitor", Capacitor(100e-9, 0.01, 1e-9)),
+                            ("plane", Plane(60e-4, 0.1e-3, 4.2, loss_tangent=0.02))), SeriesRL())
+    f = np.geomspace(10e6, 1e9, 4000)
+    peak = anti_resonances(f, lossless.decoupling_impedance(f))[0][1]
+    damped = anti_resonances(f, lossy.decoupling_impedance(f))[0][1]
+    assert damped < peak / 2
+    plane = Plane(60e-4, 0.1e-3, 4.2, loss_tangent=0.02)
+    z = plane.impedance([1e8])[0]
+    assert np.angle(z) == pytest.approx(-np.pi / 2 + np.arctan(0.02), rel=1e-9)  # loss angle delta
+
+
+def test_escape_coefficients_invert_exactly():
+    # impedance_for_escape must return the |Z_dec| (at its phase) that gives the asked fraction, with a package
+    f = np.array([5e6, 20e6])
+    z_term = lisn_impedance(f)
+    z_dec = PACKAGED.decoupling_impedance(f)
+    now = np.abs(PACKAGED.escape(f, z_term))
+    coefficients = PACKAGED.escape_coefficients(f, z_term)
+    from emispec.decoupling import impedance_for_escape
+
+    np.testing.assert_allclose(impedance_for_escape(now, z_dec, *coefficients), np.abs(z_dec), rtol=1e-9)
+    more = impedance_for_escape(1.3 * now, z_dec, *coefficients)
+    assert np.all(np.isfinite(more))
+    scaled = np.abs(PACKAGED.escape(f, z_term, z_dec * more / np.abs(z_dec)))
+    np.testing.assert_allclose(scaled, 1.3 * now, rtol=1e-9)
 
 
 @pytest.mark.parametrize("l_nh, srf_mhz", [(0.4, 25.16), (0.7, 19.02), (1.0, 15.92), (1.5, 12.99), (2.0, 11.25),

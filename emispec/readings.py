@@ -1,0 +1,179 @@
+"""What the receiver reads for each row: tuning points, refined around each maximum, all sources together.
+
+Each row (one harmonic of one source) is read at tuning frequencies in its
+occupied band.  An unmodulated harmonic is tuned onto exactly.  A spread
+harmonic is read on a grid of half a resolution bandwidth across its band plus
+half a bandwidth either side; then a quarter bandwidth either side of every
+local maximum within 1.5 dB of the row's best (between two grid points a peak
+can hide at most 1.5 dB: a CW line half an RBW off the Gaussian filter's centre
+reads 6.02 (1/2)^2 = 1.5 dB low); then, per detector, a compass search around
+the row's best point with steps of RBW/8, /16 and /32.  After the last step
+the best point lies within RBW/32 of a local maximum, where a reading shaped
+like the filter falls by at most 6.02 (2/32)^2 = 0.023 dB: the row reads
+within 0.05 dB of the continuous maximum (the tests show it against a dense
+scan and against the brute-force time-domain receiver).
+
+At every tuning point each source's lines are read by :func:`emispec.receiver.sweep`;
+sources add in power, except sources naming the same ``reference``, which add
+in amplitude (worst case).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .receiver import sweep
+
+__all__ = ["RowReadings", "read_rows", "combine", "row_max", "row_best"]
+
+#: Compass-search steps after the first refinement, as fractions of the RBW.
+SEARCH_STEPS = (1 / 8, 1 / 16, 1 / 32)
+
+
+@dataclass
+class RowReadings:
+    """One source's rows and the tuning points they were read at.
+
+    ``per_source[s][det]`` is what source ``s`` alone reads at each point; ``combined[det]`` what the receiver
+    reads there from all sources.
+    """
+
+    count: int
+    points: np.ndarray
+    owner: np.ndarray
+    lo_hz: np.ndarray  # each row's tuning range
+    hi_hz: np.ndarray
+    rbw_hz: np.ndarray
+    searched: bool
+    per_source: list[dict[str, np.ndarray]]
+    combined: dict[str, np.ndarray]
+
+    def best(self, detector: str) -> tuple[np.ndarray, np.ndarray]:
+        """Each row's largest combined reading and the index of its tuning point (-1 where nothing is read)."""
+        return row_best(self.combined[detector], self.owner, self.count)
+
+    def extend(self, points: np.ndarray, owner: np.ndarray, per_source, combined) -> None:
+        self.points = np.concatenate([self.points, points])
+        self.owner = np.concatenate([self.owner, owner])
+        self.per_source = [{d: np.concatenate([old[d], new[d]]) for d in old} for old, new in zip(self.per_source,
+                                                                                                  per_source)]
+        self.combined = {d: np.concatenate([self.combined[d], combined[d]]) for d in self.combined}
+
+
+def combine(per_source: list[dict[str, np.ndarray]], references: list[str | None], detectors) -> dict:
+    """Sources sharing a reference add in amplitude (worst case); the groups add in power."""
+    groups: dict[object, dict[str, np.ndarray]] = {}
+    for k, (reading, ref) in enumerate(zip(per_source, references)):
+        key = ref if ref is not None else ("own", k)
+        if key in groups:
+            groups[key] = {d: groups[key][d] + reading[d] for d in detectors}
+        else:
+            groups[key] = dict(reading)
+    return {d: np.sqrt(sum(g[d] ** 2 for g in groups.values())) for d in detectors}
+
+
+def row_max(values: np.ndarray, owner: np.ndarray, rows: int) -> np.ndarray:
+    """Maximum of each row's tuning-point values, ignoring NaN (NaN where a row has no value)."""
+    out = np.full(rows, -np.inf)
+    np.fmax.at(out, owner, values)
+    return np.where(np.isneginf(out), np.nan, out)
+
+
+def row_best(values: np.ndarray, owner: np.ndarray, rows: int) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's maximum (NaN ignored) and the index of the value that holds it (-1 where none)."""
+    filled = np.nan_to_num(np.asarray(values, dtype=float), nan=-np.inf)
+    order = np.lexsort((-filled, owner))  # by row, largest first
+    first = np.concatenate([[True], owner[order][1:] != owner[order][:-1]]) if order.size else np.array([], bool)
+    index = np.full(rows, -1)
+    index[owner[order][first]] = order[first]
+    value = np.where(index >= 0, filled[np.maximum(index, 0)], -np.inf)
+    value = np.where(np.isneginf(value), np.nan, value)
+    return value, np.where(np.isnan(value), -1, index)
+
+
+def _read(lines, references, points: np.ndarray, detectors):
+    per_source = [sweep(s.line_hz, s.line_amplitude, s.grid_hz, points, detectors) for s in lines]
+    return per_source, combine(per_source, references, detectors)
+
+
+def _read_all(lines, references, batches: list[tuple[np.ndarray, np.ndarray]], detectors):
+    """Read every part's new points in one pass per source; returns per part (per_source, combined)."""
+    sizes = [p.size for p, _ in batches]
+    points = np.concatenate([p for p, _ in batches]) if batches else np.array([])
+    per_source, combined = _read(lines, references, points, detectors)
+    cuts = np.cumsum([0] + sizes)
+    return [([{d: v[d][a:b] for d in detectors} for v in per_source], {d: combined[d][a:b] for d in detectors})
+            for a, b in zip(cuts[:-1], cuts[1:])]
+
+
+def _local_maxima(rows: RowReadings, limit_db: float = 1.5) -> tuple[np.ndarray, np.ndarray]:
+    """Points a quarter RBW either side of each grid maximum within ``limit_db`` of its row's best."""
+    owner = rows.owner
+    same_prev = np.concatenate([[False], owner[1:] == owner[:-1]])
+    same_next = np.concatenate([owner[:-1] == owner[1:], [False]])
+    keep = np.zeros(owner.size, bool)
+    for value in rows.combined.values():  # each detector may peak elsewhere
+        value = np.nan_to_num(value)
+        prev = np.where(same_prev, np.roll(value, 1), -np.inf)
+        nxt = np.where(same_next, np.roll(value, -1), -np.inf)
+        best = np.nan_to_num(row_max(value, owner, rows.count))
+        keep |= (value >= prev) & (value >= nxt) & (value > 0) & (value >= best[owner] * 10 ** (-limit_db / 20))
+    picked = owner[keep]
+    step = rows.rbw_hz[picked] / 4
+    return _inside(rows, np.concatenate([rows.points[keep] - step, rows.points[keep] + step]),
+                   np.concatenate([picked, picked]))
+
+
+def _around_best(rows: RowReadings, step: float) -> tuple[np.ndarray, np.ndarray]:
+    """Points ``step`` RBW either side of each row's best point, per detector."""
+    points, owners = [], []
+    for det in rows.combined:
+        _, index = rows.best(det)
+        found = np.flatnonzero(index >= 0)
+        centre = rows.points[index[found]]
+        delta = rows.rbw_hz[found] * step
+        points += [centre - delta, centre + delta]
+        owners += [found, found]
+    points, owners = np.concatenate(points), np.concatenate(owners)
+    # one point per distinct (row, frequency)
+    _, unique = np.unique(np.stack([owners.astype(float), points]), axis=1, return_index=True)
+    return _inside(rows, points[unique], owners[unique])
+
+
+def _inside(rows: RowReadings, points: np.ndarray, owner: np.ndarray):
+    """Keep the points inside their row's own tuning range."""
+    keep = (points >= rows.lo_hz[owner]) & (points <= rows.hi_hz[owner])
+    return points[keep], owner[keep]
+
+
+def read_rows(lines, references, tunings, detectors) -> list[RowReadings]:
+    """Read every source's rows.
+
+    Parameters
+    ----------
+    lines : list of SourceLines
+        Every source's lines.
+    references : list of str or None
+        Their ``reference`` names.
+    tunings : list of dict
+        Per source: ``points`` and ``owner`` (its first tuning points and the row of each), ``lo_hz``,
+        ``hi_hz`` and ``rbw_hz`` per row (its tuning range and bandwidth), ``searched`` (whether the rows are
+        refined around their maxima: spread rows).
+    detectors : tuple of str
+    """
+    rows = [RowReadings(len(t["lo_hz"]), t["points"], t["owner"], t["lo_hz"], t["hi_hz"], t["rbw_hz"], t["searched"],
+                 [], {}) for t in tunings]
+    for part, (per_source, combined) in zip(rows, _read_all(lines, references, [(r.points, r.owner) for r in rows],
+                                                            detectors)):
+        part.per_source, part.combined = per_source, combined
+    for search in (_local_maxima, *(lambda r, s=s: _around_best(r, s) for s in SEARCH_STEPS)):
+        batches = [search(r) if r.searched and r.points.size else (np.array([]), np.array([], dtype=np.int64))
+                   for r in rows]
+        if not any(p.size for p, _ in batches):
+            break
+        for part, batch, (per_source, combined) in zip(rows, batches, _read_all(lines, references, batches,
+                                                                                 detectors)):
+            part.extend(batch[0], batch[1], per_source, combined)
+    return rows
