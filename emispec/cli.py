@@ -1,28 +1,26 @@
-"""Command line: parse arguments, call the core, format.  No physics here."""
+"""Command line: parse arguments, call the core, format.  No physics here.
+
+Only typer and rich are imported at start; each command imports what it needs, so ``--version`` and ``--help``
+answer at once.
+"""
 
 from __future__ import annotations
 
 import functools
+import re
 import sys
+import threading
 from pathlib import Path
 from typing import Optional
 
-import numpy as np
 import typer
 from rich import box
 from rich.console import Console
 from rich.markup import escape as esc
 from rich.table import Table
 
-from . import __version__
-from .board import BoardError, load_board
-from .columns import column_values, columns_for, header_cells, text_cells, verdict_text
-from .flags import FLAGS
-from .limits import LimitError, bundled_limits, load_limit
-from .parameters import Template, scope_of
-from .pipeline import estimate as run_estimate
-from .report import CAUTION, atomic_write, file_part, json_text, write_outputs
-from .units import format_quantity
+from . import CAUTION, __version__
+from .errors import InputError
 
 app = typer.Typer(
     add_completion=False,
@@ -32,9 +30,13 @@ app = typer.Typer(
 out = Console(highlight=False)
 err = Console(stderr=True, highlight=False)
 
+BOARD = typer.Argument(..., metavar="BOARD.toml", help="Board file (TOML).", show_default=False)
+BUDGET = typer.Option(1.0, "--budget", metavar="FACTOR", min=0.01, max=1000.0,
+                      help="Multiply the work an estimate may take before it is refused (default 1).")
 
-class OutputError(Exception):
-    """An output that cannot be written (a user problem: exit 2)."""
+
+class OptionError(InputError):
+    """A command-line option that cannot be used (exit 2)."""
 
 
 def _guarded(command):
@@ -44,11 +46,14 @@ def _guarded(command):
     def wrapper(*args, **kwargs):
         try:
             return command(*args, **kwargs)
-        except (BoardError, LimitError, OutputError) as problem:
+        except InputError as problem:
             err.print(f"error: {problem}", markup=False, soft_wrap=True)
             raise typer.Exit(2) from None
         except typer.Exit:
             raise
+        except KeyboardInterrupt:
+            err.print("interrupted; nothing more was written", markup=False)
+            raise typer.Exit(130) from None
         except Exception as problem:  # noqa: BLE001 - the last line of defence
             err.print(f"internal error: {type(problem).__name__}: {problem} (please report it)", markup=False,
                       soft_wrap=True)
@@ -57,8 +62,8 @@ def _guarded(command):
     return wrapper
 
 
-def _fmt(x: float) -> str:
-    return "null" if not x == x else f"{x:.1f}"
+def _fmt(x) -> str:
+    return "-" if x is None or not x == x else f"{x:.1f}"
 
 
 def _margin_style(margin: float, guard: float) -> str:
@@ -70,80 +75,130 @@ def _margin_style(margin: float, guard: float) -> str:
 _VERDICT_STYLE = {"fails": "bold red", "marginal": "bold yellow", "meets": "bold green", "no-data": "bold"}
 
 
+class _SlowProgress:
+    """A progress bar that appears only when the work has taken more than ``delay`` seconds."""
+
+    def __init__(self, what: str, delay: float = 1.0):
+        self.what, self.delay = what, delay
+        self.progress = self.task = None
+        self.done, self.total = 0, None
+        self.lock = threading.Lock()
+        self.timer = threading.Timer(delay, self._show)
+        self.timer.daemon = True
+
+    def _show(self):
+        from rich.progress import Progress
+
+        with self.lock:
+            self.progress = Progress(console=err, transient=True)
+            self.task = self.progress.add_task(self.what, total=self.total, completed=self.done)
+            self.progress.start()
+
+    def update(self, done, total=None):
+        with self.lock:
+            self.done, self.total = done, total if total is not None else self.total
+            if self.progress is not None:
+                self.progress.update(self.task, completed=done, total=self.total)
+
+    def advance(self, count: int = 1):
+        self.update(self.done + count)
+
+    def __enter__(self):
+        self.timer.start()
+        return self
+
+    def __exit__(self, *exc):
+        self.timer.cancel()
+        with self.lock:
+            if self.progress is not None:
+                self.progress.stop()
+
+
+def _estimate(board: Path, budget: float = 1.0):
+    from .board import load_board
+    from .pipeline import estimate
+
+    loaded = load_board(board)
+    with _SlowProgress("estimating") as bar:
+        return estimate(loaded, progress=bar.update, budget=budget)
+
+
 @app.command()
 @_guarded
 def estimate(
-    board: Path = typer.Argument(..., help="Board file (TOML)."),
-    json_path: Optional[str] = typer.Option(None, "--json", help="Write the JSON result to PATH, or '-' for stdout."),
-    out_dir: Optional[Path] = typer.Option(None, "--out", help="Write CSV, Markdown, JSON and a spectrum plot here."),
-    rows: int = typer.Option(20, "--rows", min=0, help="How many of the worst rows to print (0: all)."),
+    board: Path = BOARD,
+    json_path: Optional[str] = typer.Option(None, "--json", metavar="PATH",
+                                            help="Write the JSON result to PATH, or '-' for stdout."),
+    out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR",
+                                           help="Write CSV, Markdown, JSON and the plots into DIR."),
+    rows: int = typer.Option(20, "--rows", metavar="N", min=0,
+                             help="How many of the worst rows to show (terminal and Markdown; 0: all)."),
+    budget: float = BUDGET,
 ) -> None:
-    """Estimate every clock harmonic's reading and margin, worst first."""
-    result = run_estimate(load_board(board))
-    to_stdout = json_path == "-"
-    if json_path and not to_stdout:
-        _write(lambda: atomic_write(Path(json_path), json_text(result)), json_path)
+    """Estimate every harmonic's reading and margin, worst first (BOARD.toml: the board file)."""
+    from .outputs import write_file
+    from .report import json_text, write_outputs
+
+    result = _estimate(board, budget)
+    if json_path:
+        write_file(json_path, json_text(result))
     if out_dir is not None:
-        _write(lambda: write_outputs(result, out_dir), str(out_dir))
-    if to_stdout:
-        sys.stdout.write(json_text(result))
+        write_outputs(result, out_dir, rows=rows or len(result.rows))
+    if json_path == "-":
+        from .columns import verdict_text
+
         err.print(verdict_text(result.outcome), markup=False)
         return
     _print_table(result, rows)
 
 
-def _write(action, where: str) -> None:
-    try:
-        action()
-    except OSError as problem:
-        raise OutputError(f"{where}: cannot write output ({problem.strerror or problem}); nothing was written") from None
+def _print_legend() -> None:
+    from .flags import FLAGS
 
-
-def _write_into(folder: Path, files: dict) -> None:
-    """Render each file (name -> function giving text or bytes) and write it atomically into ``folder``."""
-    def write():
-        Path(folder).mkdir(parents=True, exist_ok=True)
-        for name, render in files.items():
-            atomic_write(Path(folder) / name, render())
-
-    _write(write, str(folder))
-
-
-def _print_verdict(result) -> None:
-    outcome = result.outcome
-    out.print(f"[{_VERDICT_STYLE[outcome.kind]}]{esc(verdict_text(outcome))}[/]")
+    legend = "; ".join(f"{f.short} {f.meaning}" for f in sorted(FLAGS.values(), key=lambda f: f.rank)
+                       if f.name not in ("over-limit", "within-guard-band"))  # the margin's colour says those
+    out.print(f"[dim]read, limit, margin: the detector with the least margin (red: over the limit, yellow: inside "
+              f"the guard band); path: the one carrying most of the reading; SSC dB: what the spread buys. "
+              f"Flags: {esc(legend)}; +name (+N) other sources within one RBW. --json and --out give every "
+              "detector and every path.[/]")
 
 
 def _print_table(result, count: int) -> None:
+    from .columns import column_values, columns_for, header_cells, text_cells, verdict_text
+
     rows, board = result.rows, result.board
     shown = len(rows) if count == 0 else min(count, len(rows))
-    unit = board.limit.unit
-    legend = ", ".join(f"{flag.short} ({flag.meaning})" for flag in sorted(FLAGS.values(), key=lambda f: f.rank))
-    table = Table(title=f"{esc(board.title)}\nworst {shown} of {len(rows)} harmonics against "
-                  f"{esc(board.limit.name)} ({unit})",
-                  title_style="bold", caption="reading, limit, margin: the detector with the least margin. SSC dB: what "
-                  f"the spread buys there. flags: {legend}; +name: another source within one RBW. --json and --out "
-                  "give every detector.", caption_style="dim")
     columns = columns_for(result, "term")
+    wide = out.width >= 110
+    if not wide:  # keep an 80-column table to one line a row
+        columns = [c for c in columns if c.name not in ("cispr_band", "worst_ssc")]
+    table = Table(title=f"{esc(board.title)}\nworst {shown} of {len(rows)} harmonics against "
+                  f"{esc(board.limit.name)} ({board.limit.unit})", title_style="bold", title_justify="left",
+                  box=box.SIMPLE_HEAD, pad_edge=False, padding=(0, 1), collapse_padding=True)
     for c, head in zip(columns, header_cells(result, columns, "term")):
         left = c.kind in ("text", "flags")
-        table.add_column(head, justify="left" if left else "right", no_wrap=c.kind != "flags", overflow="fold")
+        table.add_column(head, justify="left" if left else "right", no_wrap=c.kind not in ("flags",),
+                         overflow="fold")
     values = column_values(result, columns)
-    margin_at = [c.name for c in columns].index("worst_margin")
+    margin_at = [c.name for c in columns].index("worst_margin_db")
     for i in range(shown):
-        cells = [esc(cell) for cell in text_cells(result, columns, values, i, "term")]
-        style = _margin_style(rows.worst_margin_db[i], board.guard_band_db)
-        cells[margin_at] = f"[{style}]{cells[margin_at]}[/]"
+        cells = [esc(cell) for cell in text_cells(result, columns, values, i, "term-wide" if wide else "term")]
+        cells[margin_at] = f"[{_margin_style(rows.worst_margin_db[i], board.guard_band_db)}]{cells[margin_at]}[/]"
         table.add_row(*cells)
     out.print(table)
-    _print_verdict(result)
+    _print_legend()
+    outcome = result.outcome
+    out.print(f"[{_VERDICT_STYLE[outcome.kind]}]{esc(verdict_text(outcome))}[/]")
     out.print(f"[dim]{CAUTION}[/]")
 
 
 @app.command()
 @_guarded
-def limits(name: Optional[str] = typer.Argument(None, help="Show this limit's points (bundled name or file).")) -> None:
-    """List the bundled limit lines, or show one limit's points."""
+def limits(name: Optional[str] = typer.Argument(None, metavar="[NAME]",
+                                                help="Show this limit's points (bundled name or file).")) -> None:
+    """List the bundled limit lines, or show one limit's points (NAME: a bundled name or a file)."""
+    from .limits import bundled_limits, load_limit
+
     if name is not None:
         limit = load_limit(name)
         out.print(f"[bold]{esc(limit.title)}[/] ({esc(limit.name)})\nsource: {esc(limit.source)}\n"
@@ -171,12 +226,15 @@ def limits(name: Optional[str] = typer.Argument(None, help="Show this limit's po
 
 
 def _part_cells(part: dict) -> list[str]:
+    from .units import format_quantity
+
     kind = part["kind"]
     if kind == "capacitor":
         value = format_quantity(part["capacitance_f"], "F")
         detail = f"ESR {format_quantity(part['esr_ohm'], 'ohm')}, L {format_quantity(part['inductance_h'], 'H')}"
     elif kind == "plane":
-        value, detail = format_quantity(part["capacitance_f"], "F"), "plane pair"
+        value = format_quantity(part["capacitance_f"], "F")
+        detail = "plane pair" + (f", tan delta {part['loss_tangent']:g}" if part["loss_tangent"] else "")
     elif kind == "regulator":
         value = format_quantity(part["resistance_ohm"], "ohm")
         detail = f"L {format_quantity(part['inductance_h'], 'H')}"
@@ -189,27 +247,41 @@ def _part_cells(part: dict) -> list[str]:
 @app.command()
 @_guarded
 def rails(
-    board: Path = typer.Argument(..., help="Board file (TOML)."),
-    out_dir: Path = typer.Option(Path("."), "--out", help="Folder for the rail plots (rail-NAME.png)."),
+    board: Path = BOARD,
+    out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR",
+                                           help="Write rail-NAME.png (|Z_dec| with the harmonics) into DIR."),
+    budget: float = BUDGET,
 ) -> None:
-    """Each rail's parts with self-resonances, anti-resonance peaks, and a plot of |Z_dec| with the harmonics."""
+    """Each rail's parts with self-resonances, anti-resonance peaks, and the harmonics it fails to short."""
+    import numpy as np
+
+    from .outputs import write_set
     from .pipeline import rail_view
     from .plot import png_bytes, rail_figure
+    from .report import file_part
+    from .units import format_quantity
 
-    result = run_estimate(load_board(board))
+    result = _estimate(board, budget)
     if not result.board.rails:
-        raise OutputError(f"{board}: rail: the board defines no [[rail]]")
+        raise OptionError(f"{board}: rail: the board defines no [[rail]]")
     rows = result.rows
+    plots = {}
     for name, rail in result.board.rails.items():
         view = rail_view(result, name)
         summary = view.summary
         target = f", target {format_quantity(rail.target_ohm, 'ohm')}" if rail.target_ohm else ""
-        table = Table(title=f"rail {esc(name)} ({rail.voltage_v:g} V{target})", title_style="bold")
+        table = Table(title=f"rail {esc(name)} ({rail.voltage_v:g} V{target})", title_style="bold",
+                      title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False)
         for col in ("part", "value", "detail", "count", "self-resonance"):
             table.add_column(col)
         for part in summary["parts"]:
             table.add_row(*map(esc, _part_cells(part)))
         out.print(table)
+        if summary["package"]:
+            pkg = summary["package"]
+            out.print(f"  package: {format_quantity(pkg['inductance_h'], 'H')}, "
+                      f"{format_quantity(pkg['die_capacitance_f'], 'F')} on the die, resonance "
+                      f"{format_quantity(pkg['resonance_hz'], 'Hz')}", markup=False)
         for peak in summary["anti_resonances"]:
             lo, hi = peak["band_hz"]
             out.print(f"  anti-resonance {format_quantity(peak['frequency_hz'], 'Hz')}: "
@@ -220,125 +292,164 @@ def rails(
         out.print(f"  {int(failing.sum())} of {int(on_rail.sum())} harmonics drawn from this rail escape more than "
                   f"the guard band allows", markup=False)
         for i in np.flatnonzero(failing)[:10]:
+            required = rows.required_impedance_ohm[i]
+            need = (f"needs <= {format_quantity(required, 'ohm')}" if required > 0 else
+                    "no |Z_dec| is enough: its other contributions alone exceed the limit minus the guard band")
             out.print(f"    {rows.source[i]} n={rows.harmonic[i]} {format_quantity(rows.frequency_hz[i], 'Hz')}: "
-                      f"|Z_dec| {format_quantity(rows.decoupling_impedance_ohm[i], 'ohm')}, needs <= "
-                      f"{format_quantity(rows.required_impedance_ohm[i], 'ohm')}", markup=False)
-        plot_name = f"rail-{file_part(name)}.png"
-        _write_into(out_dir, {plot_name: lambda view=view: png_bytes(rail_figure(result, view))})
-        out.print(f"  plot: {Path(out_dir) / plot_name}", markup=False)
+                      f"|Z_dec| {format_quantity(rows.decoupling_impedance_ohm[i], 'ohm')}, {need}", markup=False)
+        plots[f"rail-{file_part(name)}.png"] = lambda view=view: png_bytes(rail_figure(result, view))
+    if out_dir is not None:
+        for path in write_set(out_dir, plots):
+            out.print(f"plot: {path}", markup=False)
     out.print(f"[dim]{CAUTION}[/]")
 
 
+def _plain(text: str):
+    """A --set value as a board file would carry it: true/false, a whole number, a number, or text."""
+    if text in ("true", "false"):
+        return text == "true"
+    if re.fullmatch(r"[-+]?\d{1,15}", text):
+        return int(text)
+    try:
+        return float(text)
+    except ValueError:
+        return text
+
+
 def _parse_sets(sets: list[str]) -> dict[str, list]:
-    """``KEY=V1,V2`` options into key -> values; plain numbers become numbers, the rest stays text."""
-    changes = {}
+    """``KEY=V1,V2`` options into key -> values."""
+    changes: dict[str, list] = {}
     for item in sets:
         key, sep, values = item.partition("=")
-        if not sep or not key.strip() or not values.strip():
-            raise OutputError(f"--set {item!r}: write KEY=VALUE1,VALUE2, e.g. 'clock[cpu].rise_time=0.5 ns,1 ns'")
-        changes[key.strip()] = [_plain(v.strip()) for v in values.split(",")]
+        key = key.strip()
+        if not sep or not key or not values.strip():
+            raise OptionError(f"--set {item!r}: write KEY=VALUE1,VALUE2, e.g. 'clock[cpu].rise_time=0.5 ns,1 ns'")
+        if key in changes:
+            raise OptionError(f"--set {key}: given twice; give each key once with all its values")
+        changes[key] = [_plain(v.strip()) for v in values.split(",")]
     return changes
 
 
-def _plain(text: str):
-    for kind in (int, float):
-        try:
-            return kind(text)
-        except ValueError:
-            pass
-    return text
+#: Variants one command may run before it is refused (raise with --budget).
+MAX_VARIANTS = 1000
 
 
-def _progress(total: int, what: str):
-    from rich.progress import Progress
+def _run_variants(board: Path, sets: list[str], zipped: bool, workers: int | None, budget: float = 1.0):
+    import numpy as np
 
-    progress = Progress(console=err, transient=True)
-    task = progress.add_task(what, total=total)
-    return progress, (lambda count=1: progress.advance(task, count))
-
-
-def _run_variants(board: Path, sets: list[str], zipped: bool):
     from .ensemble import process_pool
     from .explore import vary
+    from .parameters import Template
 
     template = Template.load(board)
     changes = _parse_sets(sets)
     lengths = [len(v) for v in changes.values()]
     total = lengths[0] if zipped else int(np.prod(lengths))
-    progress, advance = _progress(total, f"{total} variants")
-    with progress:
-        if total < 4:
-            return vary(template, changes, "zip" if zipped else "cross", progress=advance)
-        with process_pool() as pool:
-            return vary(template, changes, "zip" if zipped else "cross", progress=advance, executor=pool)
+    if total > MAX_VARIANTS * budget:
+        raise OptionError(f"--set: {' x '.join(map(str, lengths))} values make {total} variants; the budget is "
+                          f"{MAX_VARIANTS * budget:g} (raise it with --budget, or use --zip to pair the lists)")
+    with _SlowProgress(f"{total} variants", delay=0.0) as bar:
+        bar.update(0, total)
+        if total < 4 or workers == 1:
+            return vary(template, changes, "zip" if zipped else "cross", progress=bar.advance)
+        with process_pool(workers) as pool:
+            return vary(template, changes, "zip" if zipped else "cross", progress=bar.advance, executor=pool)
+
+
+WORKERS = typer.Option(None, "--workers", metavar="N", min=1, max=256,
+                       help="Processes to run the variants on (default: one per core).")
 
 
 @app.command("vary")
 @_guarded
 def vary_command(
-    board: Path = typer.Argument(..., help="Board file (TOML)."),
-    sets: list[str] = typer.Option(..., "--set", help="KEY=V1,V2,... e.g. 'clock[cpu].rise_time=0.5 ns,1 ns'; "
-                                   "repeat for more keys."),
+    board: Path = BOARD,
+    sets: list[str] = typer.Option(..., "--set", metavar="KEY=V1,V2,...",
+                                   help="Values of one key, e.g. 'clock[sdram_clk].rise_time=0.5 ns,1 ns'; repeat "
+                                        "--set for more keys."),
     zipped: bool = typer.Option(False, "--zip", help="Take the value lists side by side instead of crossing them."),
-    out_dir: Optional[Path] = typer.Option(None, "--out", help="Write variants.csv and variants.png here."),
+    out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR", help="Write variants.csv and variants.png."),
+    workers: Optional[int] = WORKERS,
+    budget: float = BUDGET,
 ) -> None:
-    """Compare design choices: the worst margin and counts of each variant, per detector."""
+    """Compare design choices: the worst margin, where it is, and counts of each variant, per detector."""
+    from .outputs import write_set
     from .plot import png_bytes, variants_figure
     from .report import variants_csv_text, variants_rows
 
-    variants = _run_variants(board, sets, zipped)
+    variants = _run_variants(board, sets, zipped, workers, budget)
     rows = variants_rows(variants)
-    dets = variants[0].estimate.board.limit.detectors
-    table = Table(title=f"{len(rows)} variants of {esc(variants[0].estimate.board.title)}", title_style="bold")
-    for col in ("variant", "worst dB", "over", "guard", *(f"{d} worst" for d in dets)):
-        table.add_column(col, justify="left" if col == "variant" else "right")
     guard = variants[0].estimate.board.guard_band_db
+    keys = [k for k in rows[0] if k not in ("worst_margin_db", "worst_at", "over_limit", "within_guard_band")
+            and not k.startswith(("worst_margin_", "over_", "guard_"))]
+    detectors = [k[len("worst_margin_"):-len("_db")] for k in rows[0] if k.startswith("worst_margin_")
+                 and k != "worst_margin_db"]
+    table = Table(title=f"{len(rows)} variants of {esc(variants[0].estimate.board.title)}", title_style="bold",
+                  title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False, padding=(0, 1), collapse_padding=True)
+    for col in (*keys, "worst dB", "worst at", "over", "guard", *(f"{d.upper()} dB" for d in detectors)):
+        table.add_column(esc(col), justify="left" if col in keys or col == "worst at" else "right")
     for row in rows:
-        worst = row["worst_margin_db"]
-        style = _margin_style(float("nan") if worst is None else worst, guard)
-        table.add_row(esc(row["variant"]), f"[{style}]{_fmt(float('nan') if worst is None else worst)}[/]",
-                      str(row["over_limit"]), str(row["within_guard_band"]),
-                      *(_fmt(float("nan") if row[f"worst_{d}"] is None else row[f"worst_{d}"]) for d in dets))
+        style = _margin_style(float("nan") if row["worst_margin_db"] is None else row["worst_margin_db"], guard)
+        table.add_row(*(esc(row[k]) for k in keys), f"[{style}]{_fmt(row['worst_margin_db'])}[/]",
+                      esc(row["worst_at"] or "-"), str(row["over_limit"]), str(row["within_guard_band"]),
+                      *(_fmt(row[f"worst_margin_{d}_db"]) for d in detectors))
     out.print(table)
+    out.print("[dim]worst dB: the least margin of each variant (all detectors); over / guard: harmonics over the "
+              "limit / inside the guard band; per detector: its least margin (- where the limit has no such "
+              "line).[/]")
     if out_dir is not None:
-        _write_into(out_dir, {"variants.csv": lambda: variants_csv_text(variants),
-                              "variants.png": lambda: png_bytes(variants_figure(variants))})
+        write_set(out_dir, {"variants.csv": lambda: variants_csv_text(variants),
+                            "variants.png": lambda: png_bytes(variants_figure(variants))})
     out.print(f"[dim]{CAUTION}[/]")
+
+
+def _split_range(span: str) -> tuple[str, str]:
+    parts = span.split("..")
+    if "..." in span or len(parts) != 2 or not all(p.strip() for p in parts):
+        raise OptionError(f"--range {span!r}: write LOW..HIGH with two dots, e.g. '0.2 ns..5 ns'")
+    return parts[0].strip(), parts[1].strip()
 
 
 @app.command("solve")
 @_guarded
 def solve_command(
-    board: Path = typer.Argument(..., help="Board file (TOML)."),
-    key: str = typer.Option(..., "--value", help="Key path to solve for, e.g. 'clock[cpu].rise_time'."),
-    span: str = typer.Option(..., "--range", help="Search range 'LOW..HIGH' with units, e.g. '0.2 ns..5 ns'."),
-    points: int = typer.Option(17, "--points", min=5, max=200, help="Scan points before refining."),
+    board: Path = BOARD,
+    key: str = typer.Option(..., "--value", metavar="KEY", help="Key path to solve for, e.g. "
+                                                                 "'clock[sdram_clk].rise_time'."),
+    span: str = typer.Option(..., "--range", metavar="LOW..HIGH", help="Search range with units, e.g. "
+                                                                       "'0.2 ns..5 ns'."),
+    points: int = typer.Option(17, "--points", metavar="N", min=5, max=200, help="Scan points before refining."),
     whole_board: bool = typer.Option(False, "--whole-board",
-                                     help="Judge every source's harmonics, not only the source the key belongs to."),
+                                     help="Judge every row as read, not only the source the key belongs to."),
 ) -> None:
     """Find the value at which the board just keeps the guard band (fastest edge, least spread, largest loop)."""
     from .explore import solve
+    from .parameters import Template, scope_of
 
-    low, sep, high = span.partition("..")
-    if not sep:
-        raise OutputError(f"--range {span!r}: write LOW..HIGH, e.g. '0.2 ns..5 ns'")
+    low, high = _split_range(span)
     template = Template.load(board)
     scope = None if whole_board else scope_of(key)
-    progress, advance = _progress(points + 40, f"solving {key}")
     try:
-        with progress:
-            solution = solve(template, key, low, high, points, progress=advance, scope=scope)
+        with _SlowProgress(f"solving {key}", delay=0.0) as bar:
+            bar.update(0, points + 40)
+            solution = solve(template, key, low, high, points, progress=bar.advance, scope=scope)
     except ValueError as problem:
-        if isinstance(problem, BoardError):
+        if isinstance(problem, InputError):
             raise
-        raise OutputError(f"--range {span!r}: {problem}") from None
+        raise OptionError(f"--range {span!r}: {problem}") from None
     judged = f"the harmonics of {solution.scope}" if solution.scope else "every harmonic on the board"
-    out.print(f"[bold]{esc(key)}[/] = [bold]{esc(solution.text)}[/] keeps the guard band on {esc(judged)} "
-              f"({solution.direction}).")
+    if solution.value is None:
+        out.print(f"[bold]{esc(key)}[/]: no value in {esc(low)}..{esc(high)} keeps the guard band on {esc(judged)}.")
+    else:
+        out.print(f"[bold]{esc(key)}[/] = [bold]{esc(solution.text)}[/] keeps the guard band on {esc(judged)} "
+                  f"({solution.direction}).")
     if solution.binding:
         out.print(f"  binding: {solution.binding}, margin {solution.margin_db:+.2f} dB", markup=False)
-    out.print(f"  {'monotone' if solution.monotone else 'NOT monotone'} over the scan of {len(solution.scanned)} "
-              f"points; crossings at {', '.join(f'{c:.4g}' for c in solution.crossings) or 'none'}", markup=False)
+    count = len(solution.crossings)
+    if solution.value is not None and count:
+        crossings = ", ".join(f"{c:.4g} {solution.unit}".strip() for c in solution.crossings)
+        out.print(f"  {'monotone' if solution.monotone else 'NOT monotone'} over the scan of {len(solution.scanned)} "
+                  f"points; {count} crossing{'s' if count > 1 else ''} at {crossings}", markup=False)
     if solution.note:
         out.print(f"  {solution.note}", markup=False)
     out.print(f"[dim]{CAUTION}[/]")
@@ -347,61 +458,75 @@ def solve_command(
 @app.command("plan")
 @_guarded
 def plan_command(
-    board: Path = typer.Argument(..., help="Board file (TOML)."),
+    board: Path = BOARD,
     everything: bool = typer.Option(False, "--all", help="Every harmonic, not only those over or near the limit."),
-    out_dir: Optional[Path] = typer.Option(None, "--out", help="Write testplan.csv and testplan.md here."),
+    top: int = typer.Option(10, "--top", metavar="N", min=1,
+                            help="Where nothing is over or near the limit, the N closest rows."),
+    out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR", help="Write testplan.csv and testplan.md."),
+    budget: float = BUDGET,
 ) -> None:
     """The pre-compliance test plan: what to measure first, with band, RBW, detector and expected reading."""
+    from .outputs import write_set
     from .plan import plan_rows
     from .report import plan_csv_text, plan_markdown_text
+    from .units import format_quantity
 
-    result = run_estimate(load_board(board))
-    plan = plan_rows(result, everything)
+    result = _estimate(board, budget)
+    plan = plan_rows(result, everything, top)
+    passing = not everything and not (result.over_limit or result.within_guard_band)
     unit = result.board.limit.unit
-    table = Table(title=f"Test plan: {esc(result.board.title)} ({len(plan)} frequencies, worst first)",
-                  title_style="bold", caption="notes below the table", caption_style="dim")
-    for col in ("#", "source", "n", "frequency MHz", "band", "RBW", "det", f"expect {unit}", "margin"):
-        table.add_column(col, justify="left" if col in ("source", "band", "det") else "right")
+    title = (f"Test plan: {esc(result.board.title)} ({len(plan)} closest frequencies; all keep the guard band)"
+             if passing else f"Test plan: {esc(result.board.title)} ({len(plan)} frequencies, worst first)")
+    table = Table(title=title, title_style="bold", title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False,
+                  padding=(0, 1), collapse_padding=True)
+    for col in ("#", "source", "n", "MHz", "RBW", "det", f"expect {unit}", "margin", "path"):
+        table.add_column(col, justify="left" if col in ("source", "det", "path") else "right")
     for row in plan:
         freq = (f"{row['band_lo_hz'] / 1e6:.6g}-{row['band_hi_hz'] / 1e6:.6g}"
                 if row["band_hi_hz"] > row["band_lo_hz"] else f"{row['frequency_hz'] / 1e6:.6g}")
-        table.add_row(str(row["priority"]), esc(row["source"]), str(row["harmonic"]), freq, row["cispr_band"],
+        table.add_row(str(row["priority"]), esc(row["source"]), str(row["harmonic"]), freq,
                       format_quantity(row["rbw_hz"], "Hz"), row["detectors"], f"{row['expected']:.1f}",
-                      f"{row['margin_db']:.1f}")
+                      f"{row['margin_db']:.1f}", esc(row["path"] or "-"))
     out.print(table)
     for row in plan:
         if row["note"]:
             out.print(f"  #{row['priority']}: {row['note']}", markup=False)
     if out_dir is not None:
-        _write_into(out_dir, {"testplan.csv": lambda: plan_csv_text(result, plan),
-                              "testplan.md": lambda: plan_markdown_text(result, plan)})
+        write_set(out_dir, {"testplan.csv": lambda: plan_csv_text(result, plan),
+                            "testplan.md": lambda: plan_markdown_text(result, plan, passing)})
     out.print(f"[dim]{CAUTION}[/]")
 
 
 @app.command("report")
 @_guarded
 def report_command(
-    board: Path = typer.Argument(..., help="Board file (TOML)."),
-    out_path: Path = typer.Option(..., "--out", help="The HTML file to write."),
-    sets: Optional[list[str]] = typer.Option(None, "--set", help="Variants to include, as for `emispec vary`."),
+    board: Path = BOARD,
+    out_path: Path = typer.Option(..., "--out", metavar="FILE.html", help="The HTML file to write."),
+    sets: Optional[list[str]] = typer.Option(None, "--set", metavar="KEY=V1,V2,...",
+                                             help="Variants to include, as for `emispec vary`."),
     zipped: bool = typer.Option(False, "--zip", help="Take the --set value lists side by side."),
     everything: bool = typer.Option(False, "--all", help="Test plan with every harmonic."),
+    rows: int = typer.Option(20, "--rows", metavar="N", min=1, help="How many of the worst rows the table shows."),
+    workers: Optional[int] = WORKERS,
+    budget: float = BUDGET,
 ) -> None:
     """One self-contained HTML report: verdict, margins, plots, variants and test plan."""
+    from .outputs import write_file
     from .plan import plan_rows
     from .report import html_text
 
-    result = run_estimate(load_board(board))
-    variants = _run_variants(board, sets, zipped) if sets else None
-    text = html_text(result, plan_rows(result, everything), variants)
-    _write_into(out_path.parent, {out_path.name: lambda: text})
+    result = _estimate(board, budget)
+    variants = _run_variants(board, sets, zipped, workers, budget) if sets else None
+    plan = plan_rows(result, everything, top=10)
+    passing = not everything and not (result.over_limit or result.within_guard_band)
+    write_file(out_path, html_text(result, plan, variants, rows, passing=passing))
     out.print(f"report: {out_path}", markup=False)
     out.print(f"[dim]{CAUTION}[/]")
 
 
 def _version(value: bool) -> None:
     if value:
-        out.print(f"emispec {__version__}")
+        print(f"emispec {__version__}")
         raise typer.Exit()
 
 
@@ -414,3 +539,7 @@ def _root(
 
 def main() -> None:
     app()
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

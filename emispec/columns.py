@@ -2,9 +2,16 @@
 
 A :class:`Column` names a column, says how to get its values from an
 estimate (an array over the rows, or a dict of arrays per detector), what kind
-of value it is (which decides how each output formats it) and in which outputs
-it appears.  Adding a column is one entry in :data:`COLUMNS`; the writers in
-:mod:`emispec.report` and the command line only walk this list.
+of value it is (which decides how each output formats it), its unit, and in
+which outputs it appears.  Adding a column is one entry in :data:`COLUMNS`;
+the writers in :mod:`emispec.report` and the command line only walk this list.
+
+Formats: JSON carries numbers (levels rounded to 0.001 dB) and ``null``; CSV
+carries frequencies in MHz to 1 kHz, levels to 0.01 dB, empty cells where a
+value does not exist, and the unit in every column name
+(``reading_qp_dbuv_m``); the terminal, Markdown and HTML tables show the
+detector with the least margin, levels to 0.1 dB and a dash where a value
+does not exist.
 
 :func:`verdict_text` puts a :class:`emispec.rows.Verdict` into words.
 """
@@ -17,14 +24,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .flags import short_code
+from .flags import OVER_LIMIT, OVERLAPS, WITHIN_GUARD_BAND, short_code
 from .receiver import band_names
 from .rows import Verdict
 
 __all__ = ["Column", "COLUMNS", "columns_for", "column_values", "json_row", "text_cells", "header_cells",
-           "verdict_text", "detectors_of"]
+           "verdict_text", "detectors_of", "unit_token"]
 
-ALL = frozenset({"json", "csv", "md", "html", "term"})
+FULL = frozenset({"json", "csv"})
+SUMMARY = frozenset({"term", "md", "html"})
 
 
 @dataclass(frozen=True)
@@ -34,42 +42,48 @@ class Column:
     Parameters
     ----------
     name : str
-        Key in a JSON row; the CSV name unless ``csv`` says otherwise (per
-        detector: ``<csv>_<detector>``).
+        Key in a JSON row.
     header : str
-        Heading in the terminal, HTML and Markdown tables (per detector:
-        ``<detector> <header>``).
+        Heading in the terminal, Markdown and HTML tables (per detector: ``<detector> <header>``).
     kind : str
-        ``text``, ``int``, ``hz`` (a frequency in Hz), ``mhz`` (shown in MHz),
-        ``db`` (a level or margin), ``ohm``, ``flags``, or ``json`` (a value
-        only JSON carries).
+        ``text``, ``int``, ``mhz`` (a frequency in Hz, shown in MHz), ``db`` (a level or margin), ``ohm``,
+        ``flags``, or ``json`` (a value only JSON carries).
     values : callable
         ``values(est)`` -> array over the rows, or a dict detector -> array.
     outputs : frozenset
         Any of ``json``, ``csv``, ``md``, ``html``, ``term``.
     per_detector : bool
         The values are a dict detector -> array.
+    csv : str
+        The CSV name before the detector and unit (default ``name``).
+    unit : str
+        ``"limit"`` (the limit's unit), or a unit token for the CSV name (``"db"``, ``"dbuv"``, ``"dbua"``,
+        ``"mhz"``, ``"ohm"``); empty for none.
     when : callable
-        ``when(est)``: the column exists for this estimate (rail columns only
-        for boards with rails).
+        ``when(est)``: the column exists for this estimate (rail columns only for boards with rails).
     json : callable
-        ``json(est, values, i)``: the JSON value of row ``i`` where it is not
-        simply the formatted value.
+        ``json(est, values, i)``: the JSON value of row ``i`` where it is not simply the formatted value.
     """
 
     name: str
     header: str
     kind: str
     values: Callable
-    outputs: frozenset = ALL
+    outputs: frozenset = FULL
     per_detector: bool = False
     csv: str | None = None
+    unit: str = ""
     when: Callable = lambda est: True
     json: Callable | None = None
 
 
 def detectors_of(est) -> tuple[str, ...]:
     return est.board.limit.detectors
+
+
+def unit_token(unit: str) -> str:
+    """``dBuV/m`` -> ``dbuv_m``: a unit as it can stand in a column name."""
+    return unit.lower().replace("/", "_")
 
 
 def _rows(name):
@@ -147,47 +161,48 @@ def _json_reduction(est, values, i):
 
 #: Every output column, in output order.
 COLUMNS: tuple[Column, ...] = (
-    Column("source", "source", "text", _rows("source")),
-    Column("harmonic", "n", "int", _rows("harmonic")),
-    Column("frequency_hz", "frequency Hz", "hz", _rows("frequency_hz"), frozenset({"json", "csv", "md"})),
-    Column("frequency_mhz", "MHz", "mhz", _rows("frequency_hz"), frozenset({"html", "term"})),
+    Column("source", "source", "text", _rows("source"), FULL | SUMMARY),
+    Column("harmonic", "n", "int", _rows("harmonic"), FULL | SUMMARY),
+    Column("frequency_hz", "MHz", "mhz", _rows("frequency_hz"), FULL | SUMMARY, csv="frequency", unit="mhz"),
     Column("cispr_band", "band", "text", lambda est: band_names(est.rows.frequency_hz), frozenset({"term"})),
-    Column("band_lo_hz", "band from Hz", "hz", _rows("band_lo_hz"), frozenset({"csv", "md"})),
-    Column("band_hi_hz", "band to Hz", "hz", _rows("band_hi_hz"), frozenset({"csv", "md"})),
-    Column("harmonics", "level", "text", _rows("harmonics"), frozenset({"json", "csv"})),
-    Column("line_dbuv", "line dBuV", "db", _rows("line_dbuv"), frozenset({"json", "csv", "md"})),
-    Column("line_dbua", "line dBuA", "db", _rows("line_dbua"), frozenset({"json", "csv", "md"})),
-    Column("line_envelope_dbuv", "envelope dBuV", "db", _rows("line_envelope_dbuv"), frozenset({"json", "csv"})),
-    Column("line_exact_dbuv", "exact dBuV", "db", _rows("line_exact_dbuv"), frozenset({"json", "csv"})),
-    Column("line_envelope_dbua", "envelope dBuA", "db", _rows("line_envelope_dbua"), frozenset({"json", "csv"})),
-    Column("line_exact_dbua", "exact dBuA", "db", _rows("line_exact_dbua"), frozenset({"json", "csv"})),
-    Column("rail_dbua", "rail dBuA", "db", _rows("rail_dbua"), frozenset({"json", "csv"}), when=_has_rails),
+    Column("band_lo_hz", "band from", "mhz", _rows("band_lo_hz"), frozenset({"csv"}), csv="band_lo", unit="mhz"),
+    Column("band_hi_hz", "band to", "mhz", _rows("band_hi_hz"), frozenset({"csv"}), csv="band_hi", unit="mhz"),
+    Column("harmonics", "level", "text", _rows("harmonics")),
+    Column("line_dbuv", "line dBuV", "db", _rows("line_dbuv"), csv="line", unit="dbuv"),
+    Column("line_dbua", "line dBuA", "db", _rows("line_dbua"), csv="line", unit="dbua"),
+    Column("line_envelope_dbuv", "envelope dBuV", "db", _rows("line_envelope_dbuv"), csv="line_envelope",
+           unit="dbuv"),
+    Column("line_exact_dbuv", "exact dBuV", "db", _rows("line_exact_dbuv"), csv="line_exact", unit="dbuv"),
+    Column("line_envelope_dbua", "envelope dBuA", "db", _rows("line_envelope_dbua"), csv="line_envelope",
+           unit="dbua"),
+    Column("line_exact_dbua", "exact dBuA", "db", _rows("line_exact_dbua"), csv="line_exact", unit="dbua"),
+    Column("rail_dbua", "rail dBuA", "db", _rows("rail_dbua"), csv="rail", unit="dbua", when=_has_rails),
     Column("band_hz", "band", "json", _rows("band_lo_hz"), frozenset({"json"}), json=_json_band),
     Column("paths", "paths", "json", _rows("path_readings"), frozenset({"json"}), json=_json_paths),
     Column("cable_current_dbua", "cable dBuA", "json", _rows("cable_current_dbua"), frozenset({"json"}),
            json=_json_cables),
-    Column("readings", "reading", "db", _per_detector("readings"), frozenset({"json", "csv", "md", "html"}),
-           per_detector=True, csv="reading"),
-    Column("worst_detector", "det", "text", _rows("worst_detector"), frozenset({"term"})),
-    Column("worst_reading", "read", "db", lambda est: _worst(est, "readings"), frozenset({"term"})),
-    Column("worst_limit", "limit", "db", lambda est: _worst(est, "limits"), frozenset({"term"})),
-    Column("spread_reduction_db", "SSC dB", "db", _per_detector("spread_reduction_db"),
-           frozenset({"json", "csv", "md"}), per_detector=True, csv="ssc_reduction", json=_json_reduction),
-    Column("limits", "limit", "db", _per_detector("limits"), frozenset({"json", "csv", "md", "html"}),
-           per_detector=True, csv="limit", json=_json_limits),
-    Column("margin_db", "margin", "db", _per_detector("margins"), frozenset({"json", "csv", "md", "html"}),
-           per_detector=True, csv="margin", json=_json_margins),
-    Column("worst_margin", "margin", "db", _rows("worst_margin_db"), frozenset({"term"})),
+    Column("readings", "reading", "db", _per_detector("readings"), per_detector=True, csv="reading", unit="limit"),
+    Column("spread_reduction_db", "SSC dB", "db", _per_detector("spread_reduction_db"), per_detector=True,
+           csv="ssc_reduction", unit="db", json=_json_reduction),
+    Column("limits", "limit", "db", _per_detector("limits"), per_detector=True, csv="limit", unit="limit",
+           json=_json_limits),
+    Column("margin_db", "margin", "db", _per_detector("margins"), per_detector=True, csv="margin", unit="db",
+           json=_json_margins),
+    Column("worst_detector", "det", "text", _rows("worst_detector"), frozenset({"csv"}) | SUMMARY),
+    Column("worst_reading", "read", "db", lambda est: _worst(est, "readings"), SUMMARY),
+    Column("worst_limit", "limit", "db", lambda est: _worst(est, "limits"), SUMMARY),
+    Column("worst_margin_db", "margin", "db", _rows("worst_margin_db"), FULL | SUMMARY, csv="worst_margin",
+           unit="db"),
     Column("worst_ssc", "SSC dB", "db", _worst_ssc, frozenset({"term"})),
-    Column("worst_margin_db", "worst", "db", _rows("worst_margin_db"), frozenset({"json", "csv", "md", "html"})),
-    Column("flags", "flags", "flags", lambda est: est.rows, frozenset(ALL)),
+    Column("dominant_path", "path", "text", _rows("dominant_path"), FULL | SUMMARY),
+    Column("flags", "flags", "flags", lambda est: est.rows, FULL | SUMMARY),
     Column("decoupling_impedance_ohm", "|Z_dec| ohm", "ohm", _rows("decoupling_impedance_ohm"),
-           frozenset({"json", "csv", "md"}), when=_has_rails),
+           csv="decoupling_impedance", unit="ohm", when=_has_rails),
     Column("decoupling_impedance_max_ohm", "worst |Z_dec| ohm", "ohm", _rows("decoupling_impedance_max_ohm"),
-           frozenset({"json", "csv"}), when=_has_rails),
+           csv="decoupling_impedance_max", unit="ohm", when=_has_rails),
     Column("required_impedance_ohm", "required ohm", "ohm", _rows("required_impedance_ohm"),
-           frozenset({"json", "csv", "md"}), when=_has_rails),
-    Column("suppression_db", "suppression dB", "db", _rows("suppression_db"), frozenset({"json", "csv", "md"}),
+           csv="required_impedance", unit="ohm", when=_has_rails),
+    Column("suppression_db", "suppression dB", "db", _rows("suppression_db"), csv="suppression", unit="db",
            when=_has_rails),
 )
 
@@ -214,55 +229,76 @@ def json_row(est, columns, values, i: int) -> dict:
         elif c.per_detector:
             row[c.name] = {d: _num(x[i]) for d, x in v.items()}
         elif c.kind == "text":
-            row[c.name] = str(v[i])
+            row[c.name] = None if v[i] is None else str(v[i])
         elif c.kind == "int":
             row[c.name] = int(v[i])
-        elif c.kind == "hz":
+        elif c.kind == "mhz":
             row[c.name] = float(v[i])
         else:
             row[c.name] = _num(v[i], 6 if c.kind == "ohm" else 3)
     return row
 
 
+def _csv_name(est, c: Column, detector: str | None = None) -> str:
+    parts = [c.csv or c.name]
+    if detector is not None:
+        parts.append(detector.lower().replace("-", "_"))
+    unit = unit_token(est.board.limit.unit) if c.unit == "limit" else c.unit
+    if unit:
+        parts.append(unit)
+    return "_".join(parts)
+
+
 def header_cells(est, columns, output: str) -> list[str]:
-    """Column headings: CSV names for CSV and Markdown, short headings for the terminal and HTML."""
+    """Column headings: names with units for CSV, short headings for the terminal, Markdown and HTML."""
     out = []
     for c in columns:
         if c.per_detector:
             dets = detectors_of(est)
-            out += [f"{c.csv or c.name}_{d}" if output in ("csv", "md") else f"{d} {c.header}" for d in dets]
+            out += [_csv_name(est, c, d) if output == "csv" else f"{d} {c.header}" for d in dets]
         else:
-            out.append(c.name if output in ("csv", "md") else c.header)
+            out.append(_csv_name(est, c) if output == "csv" else c.header)
     return out
 
 
 def _format(x, kind: str, output: str) -> str:
+    missing = "" if output == "csv" else "-"
+    if x is None:
+        return missing
     if kind == "text":
-        return "-" if x is None else str(x)
+        return str(x)
     if kind == "int":
         return str(int(x))
-    if kind == "hz":
-        return f"{x:.10g}"
+    if not math.isfinite(x):
+        return "null" if output == "term" and kind == "db" else missing
     if kind == "mhz":
-        return f"{x / 1e6:.6g}"
-    if x is None:
-        return "-"
-    finite = math.isfinite(x)
+        return f"{x / 1e6:.3f}" if output == "csv" else f"{x / 1e6:.6g}"
     if kind == "ohm":
-        return f"{x:.4g}" if finite else "null"
-    if output == "term":
-        return f"{x:.1f}" if finite else "null"
-    return f"{x:.2f}" if finite else "null"
+        return f"{x:.4g}"
+    return f"{x:.2f}" if output == "csv" else f"{x:.1f}"
+
+
+def terminal_flags(flags: list[str], wide: bool) -> str:
+    """Short codes for the terminal: the margin column already says over or inside the guard band, and
+    overlapping sources are counted (``+2``) unless the terminal is wide enough for their names."""
+    shown = [short_code(f) for f in flags if f not in (OVER_LIMIT, WITHIN_GUARD_BAND) and not f.startswith(OVERLAPS)]
+    others = [f for f in flags if f.startswith(OVERLAPS)]
+    if others:
+        shown += [short_code(f) for f in others] if wide else [f"+{len(others)}"]
+    return " ".join(shown)
 
 
 def text_cells(est, columns, values, i: int, output: str) -> list[str]:
-    """One row's cells as text for ``output`` (csv, md, html, term)."""
+    """One row's cells as text for ``output`` (csv, md, html, term, or term-wide: a terminal of 110 columns or
+    more)."""
+    terminal, wide = output.startswith("term"), output == "term-wide"
+    output = "term" if terminal else output
     cells = []
     for c in columns:
         v = values[c.name]
         if c.kind == "flags":
             flags = v.flag_list(i)
-            cells.append(" ".join(short_code(f) for f in flags) if output == "term" else " ".join(flags))
+            cells.append(terminal_flags(flags, wide) if terminal else " ".join(flags))
         elif c.per_detector:
             cells += [_format(v[d][i], c.kind, output) for d in detectors_of(est)]
         else:

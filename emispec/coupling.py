@@ -25,8 +25,8 @@ from dataclasses import dataclass
 from typing import ClassVar, Protocol
 
 import numpy as np
-from scipy import constants
 
+from .constants import C, MU_0
 from .decoupling import lisn_impedance
 from .flags import declare
 from .schema import BoardError, Key, TableReader
@@ -53,7 +53,7 @@ __all__ = [
 
 #: pi eta0 / c^2 [s^2 ohm / m^2]: |E| = K f^2 A I / r for a small loop in free
 #: space (Paul 2006, sec. 8.1.2, who rounds it to 1.316e-14).
-LOOP_CONSTANT = np.pi * constants.mu_0 * constants.c / constants.c**2
+LOOP_CONSTANT = np.pi * MU_0 * C / C**2
 
 #: Field doubling (+6 dB) of an in-phase reflection from a ground plane, as
 #: on an open-area test site (Ott 2009, ch. 12).
@@ -134,14 +134,14 @@ def cable_field(frequency_hz, current_a, length_m, distance_m, ground_reflection
     Paul (2006), sec. 8.1.3; Ott (2009), ch. 12.
     """
     f = np.asarray(frequency_hz, dtype=float)
-    effective_length = np.minimum(length_m, 0.5 * constants.c / f)
+    effective_length = np.minimum(length_m, 0.5 * C / f)
     factor = reflection_factor(f, ground_reflection)
-    return factor * 0.5 * constants.mu_0 * f * effective_length * np.asarray(current_a) / distance_m
+    return factor * 0.5 * MU_0 * f * effective_length * np.asarray(current_a) / distance_m
 
 
 def near_field(frequency_hz, distance_m):
     """True where the distance is inside the reactive near field, r < lambda / (2 pi)."""
-    return distance_m < constants.c / (2 * np.pi * np.asarray(frequency_hz, dtype=float))
+    return distance_m < C / (2 * np.pi * np.asarray(frequency_hz, dtype=float))
 
 
 def interpolate_db_log_f(frequency_hz, table_hz, table_db):
@@ -231,7 +231,7 @@ class LoopPath:
         f = np.asarray(frequency_hz, dtype=float)
         # the small-loop formula assumes a perimeter well below lambda; lambda/10 is common practice, no source
         return {NEAR_FIELD: near_field(f, self.distance_m or limit_distance_m),
-                LOOP_LARGE: 4 * np.sqrt(self.area_m2) > (299_792_458.0 / f) / 10}
+                LOOP_LARGE: 4 * np.sqrt(self.area_m2) > (C / f) / 10}
 
     @classmethod
     def from_table(cls, r: TableReader, limit) -> LoopPath:

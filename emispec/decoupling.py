@@ -40,10 +40,8 @@ from pathlib import Path
 from typing import ClassVar
 
 import numpy as np
-from scipy import constants
 
-MU_0 = constants.mu_0
-
+from .constants import EPSILON_0, MU_0
 from .flags import declare
 from .readers import TouchstoneError, read_impedance_table, read_touchstone
 from .schema import BoardError, Key, TableReader
@@ -187,7 +185,7 @@ class Plane:
 
     @property
     def capacitance_f(self) -> float:
-        return constants.epsilon_0 * self.permittivity * self.area_m2 / self.separation_m
+        return EPSILON_0 * self.permittivity * self.area_m2 / self.separation_m
 
     def impedance(self, frequency_hz) -> np.ndarray:
         w = 2 * np.pi * np.asarray(frequency_hz, dtype=float)
@@ -523,6 +521,23 @@ def impedance_for_escape(fraction, z_dec, alpha, beta=None, gamma=None) -> np.nd
         return np.where(a > 0, (-b + np.sqrt(b * b - 4 * a * c)) / (2 * a), np.inf)
 
 
+def _prominent_peaks(level: np.ndarray, prominence: float) -> np.ndarray:
+    """Indices of local maxima standing at least ``prominence`` above the higher of the two lowest points that
+    separate them from higher ground on either side (the topographic prominence, as scipy.signal.find_peaks
+    defines it; written here to spare every start the import of scipy.signal)."""
+    inner = np.flatnonzero((level[1:-1] > level[:-2]) & (level[1:-1] >= level[2:])) + 1
+    keep = []
+    for p in inner:
+        higher_left = np.flatnonzero(level[:p] > level[p])
+        higher_right = np.flatnonzero(level[p + 1:] > level[p])
+        start = higher_left[-1] + 1 if higher_left.size else 0
+        stop = p + 1 + higher_right[0] if higher_right.size else level.size
+        base = max(level[start:p + 1].min(), level[p:stop].min())
+        if level[p] - base >= prominence:
+            keep.append(p)
+    return np.array(keep, dtype=np.int64)
+
+
 def anti_resonances(frequency_hz, z_ohm, min_prominence_db: float = 3.0):
     """Peaks of |Z|: their frequencies, |Z| and the band around each where |Z| is within 3 dB of the peak.
 
@@ -530,11 +545,9 @@ def anti_resonances(frequency_hz, z_ohm, min_prominence_db: float = 3.0):
     -------
     list of (f_peak, |Z|_peak, f_low, f_high)
     """
-    from scipy.signal import find_peaks  # scipy.signal is slow to import; only rails need it
-
     f = np.asarray(frequency_hz, dtype=float)
     level = 20 * np.log10(np.abs(z_ohm))
-    peaks, _ = find_peaks(level, prominence=min_prominence_db)
+    peaks = _prominent_peaks(level, min_prominence_db)
     out = []
     for p in peaks:
         below = level < level[p] - 3.0

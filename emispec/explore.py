@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .ensemble import Ensemble
-from .parameters import Template, scope_of
+from .parameters import Template, key_label, scope_of
 from .pipeline import Estimate, estimate
 from .schema import BoardError
 from .units import QuantityError, parse_quantity
@@ -32,18 +32,28 @@ class Variant:
 
     @property
     def label(self) -> str:
-        return ", ".join(f"{k.split('.')[-1]}={v}" for k, v in self.settings)
+        """``sdram_clk.rise_time=0.3 ns, dc_cable.ratio=-40 dB``: each key with its entry's name."""
+        return ", ".join(f"{key_label(k)}={v}" for k, v in self.settings)
+
+    def worst_at(self, detector: str | None = None) -> str | None:
+        """The row with the least margin: ``sdram_clk n=6 QP`` (None where no row has a margin)."""
+        rows = self.estimate.rows
+        values = rows.worst_margin_db if detector is None else rows.margins.get(detector)
+        if values is None or not np.isfinite(values).any():
+            return None
+        i = int(np.nanargmin(values))
+        return f"{rows.source[i]} n={rows.harmonic[i]} {detector or rows.worst_detector[i]}"
 
     def worst_margin_db(self, detector: str | None = None) -> float:
         rows = self.estimate.rows
-        values = rows.worst_margin_db if detector is None else rows.margins[detector]
+        values = rows.worst_margin_db if detector is None else rows.margins.get(detector, np.array([]))
         finite = values[np.isfinite(values)]
         return float(finite.min()) if finite.size else float("nan")
 
     def counts(self, detector: str | None = None) -> tuple[int, int]:
         """(over the limit, within the guard band) on one detector or on the worst of all."""
         rows = self.estimate.rows
-        margin = rows.worst_margin_db if detector is None else rows.margins[detector]
+        margin = rows.worst_margin_db if detector is None else rows.margins.get(detector, np.array([]))
         m = np.nan_to_num(margin, nan=np.inf)
         guard = self.estimate.board.guard_band_db
         return int((m < 0).sum()), int(((m >= 0) & (m < guard)).sum())
@@ -139,14 +149,61 @@ def _range(template: Template, key: str, low: str, high: str, points: int):
         except QuantityError as err:
             raise ValueError(f"{err} for {key}") from None
         to_si = (lambda x: x * scale)
-    lo, hi = float(a), float(b)
+    lo, hi = sorted((float(a), float(b)))  # a range written high..low means the same range
+    if not (np.isfinite(lo) and np.isfinite(hi)):
+        raise ValueError(f"the ends must be finite numbers (got {low!r} and {high!r})")
+    return _scan_values(lo, hi, points, unit, integer), unit, integer, to_si
+
+
+def _scan_values(lo: float, hi: float, points: int, unit: str, integer: bool) -> np.ndarray:
+    """Scan points over [lo, hi]: whole numbers for counts, log-spaced over more than a decade (not for dB or %)."""
     if integer:
-        values = np.unique(np.round(np.linspace(lo, hi, min(points, int(abs(hi - lo)) + 1))))
-    elif lo > 0 and hi > 0 and max(lo, hi) / min(lo, hi) > 10 and unit not in ("dB", "%"):
-        values = np.geomspace(lo, hi, points)
-    else:
-        values = np.linspace(lo, hi, points)
-    return values, unit, integer, to_si
+        return np.unique(np.round(np.linspace(lo, hi, min(points, int(abs(hi - lo)) + 1))))
+    if lo > 0 and hi > 0 and hi / lo > 10 and unit not in ("dB", "%"):
+        return np.geomspace(lo, hi, points)
+    return np.linspace(lo, hi, points)
+
+
+def _feasible(template: Template, key: str, values: np.ndarray, to_si, unit: str, integer: bool, points: int):
+    """The scan cut to the values that make a valid board, and a note saying so (empty when nothing was cut).
+
+    Where a value beyond some point is not a valid board (a rise time that no longer fits the high time), the
+    boundary is found by bisection and the scan redone inside it.
+    """
+    def problem(v):
+        try:
+            template.board_at({key: to_si(v)})
+            return None
+        except BoardError as err:
+            return err.problem
+
+    problems = [problem(v) for v in values]
+    valid = [p is None for p in problems]
+    if all(valid):
+        return values, ""
+    if not any(valid):
+        raise BoardError(template.file, key, f"no value in the range makes a valid board: {problems[0]}")
+    # the longest run of valid scan points
+    runs, start = [], None
+    for k, ok in enumerate(valid + [False]):
+        if ok and start is None:
+            start = k
+        elif not ok and start is not None:
+            runs.append((start, k - 1))
+            start = None
+    first, last = max(runs, key=lambda r: r[1] - r[0])
+    lo, hi = values[first], values[last]
+    reasons = []
+    for inside, outside, side in ((first, first - 1, "below"), (last, last + 1, "above")):
+        if 0 <= outside < len(values):
+            good, bad = values[inside], values[outside]
+            for _ in range(40 if not integer else 0):
+                mid = 0.5 * (good + bad)
+                good, bad = (mid, bad) if problem(mid) is None else (good, mid)
+            lo, hi = (good, hi) if side == "below" else (lo, good)
+            reasons.append(f"{side} it, {problems[outside]}")
+    note = f"the range was cut to {lo:.4g}..{hi:.4g} {unit}".rstrip() + ": " + "; ".join(reasons)
+    return _scan_values(lo, hi, points, unit, integer), note
 
 
 def solve(template: Template, key: str, low: str, high: str, points: int = 17, tolerance_db: float = 0.02,
@@ -166,6 +223,7 @@ def solve(template: Template, key: str, low: str, high: str, points: int = 17, t
     rest of the range passes, on the side where the margin is larger.
     """
     values, unit, integer, to_si = _range(template, key, low, high, points)
+    values, cut = _feasible(template, key, values, to_si, unit, integer, points)
     if scope == "auto":
         scope = scope_of(key)
     cache: dict[float, Estimate] = {}
@@ -229,7 +287,7 @@ def solve(template: Template, key: str, low: str, high: str, points: int = 17, t
         value = xs[0] if increasing else xs[-1]
         note = "the whole range keeps the guard band"
     elif not passing.any():
-        value, note = None, "no value in the range keeps the guard band"
+        value, note = None, _why_not(run, judged, margins, xs, ys, key)
     else:
         if increasing:
             edge = crossings[-1]
@@ -239,18 +297,51 @@ def solve(template: Template, key: str, low: str, high: str, points: int = 17, t
             value = edge[0] if excess(edge[0]) >= 0 else edge[1]
         note = "" if monotone else (f"worst margin is not monotone in {key} ({len(crossings)} crossings in the scan); "
                                     "the value given is the boundary beyond which the rest of the range passes")
-    binding = margin = None
-    if value is not None:
-        est = run(value)
-        judged_margin = np.where(judged(est), margins(est), np.nan)
-        if np.isfinite(judged_margin).any():
-            i = int(np.nanargmin(judged_margin))
-            r = est.rows
-            binding = (f"{r.source[i]} n={r.harmonic[i]} at {r.frequency_hz[i] / 1e6:.6g} MHz, "
-                       f"{r.worst_detector[i]}")
-            margin = float(judged_margin[i])
+    best = value if value is not None else float(xs[int(np.argmax(ys))])
+    binding, margin = _binding(run(best), judged, margins)
+    if cut:
+        note = f"{cut}; {note}" if note else cut
+    direction = "" if value is None else ("larger values pass" if increasing else "smaller values pass")
     return Solution(
-        key, scope, unit, None if value is None else float(value), margin,
-        "larger values pass" if increasing else "smaller values pass", monotone, binding,
+        key, scope, unit, None if value is None else float(value), margin, direction, monotone, binding,
         tuple(scan), tuple(float(0.5 * (a + b)) for a, b in crossings), note,
     )
+
+
+def _binding_row(est, judged, margins) -> int | None:
+    judged_margin = np.where(judged(est), margins(est), np.nan)
+    return int(np.nanargmin(judged_margin)) if np.isfinite(judged_margin).any() else None
+
+
+def _binding(est, judged, margins) -> tuple[str | None, float | None]:
+    """The judged row with the least margin: ``sdram_clk n=2 at 200 MHz on sdram_loop, QP`` and its margin."""
+    i = _binding_row(est, judged, margins)
+    if i is None:
+        return None, None
+    r = est.rows
+    path = f" on {r.dominant_path[i]}" if r.dominant_path[i] is not None else ""
+    text = f"{r.source[i]} n={r.harmonic[i]} at {r.frequency_hz[i] / 1e6:.6g} MHz{path}, {r.worst_detector[i]}"
+    return text, float(np.where(judged(est), margins(est), np.nan)[i])
+
+
+def _why_not(run, judged, margins, xs, ys, key) -> str:
+    """Why no value works: the row that binds at the best value, and whether the key moves it at all."""
+    best = float(xs[int(np.argmax(ys))])
+    est = run(best)
+    i = _binding_row(est, judged, margins)
+    if i is None:
+        return "no value in the range keeps the guard band"
+    row = est.rows.key(i)
+    spread = []
+    for x in (xs[0], xs[-1]):
+        other = run(float(x))
+        hits = [j for j in range(len(other.rows)) if other.rows.key(j) == row]
+        if hits:
+            spread.append(float(margins(other)[hits[0]]))
+    source, n = row
+    path = est.rows.dominant_path[i]
+    where = f"{source} n={n}" + (f" on {path}" if path is not None else "")
+    if len(spread) == 2 and abs(spread[1] - spread[0]) < 0.05:
+        return f"no value in the range keeps the guard band: {where} binds, and {key} does not change it"
+    return (f"no value in the range keeps the guard band: {where} binds; its best margin in the range is "
+            f"{max(spread + [float(margins(est)[i])]):+.2f} dB")

@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .errors import InputError
 from .readers import FileError, read_toml, read_two_column_csv
 from .receiver import DETECTORS
 from .trace import Trace
@@ -40,7 +41,7 @@ UNITS = ("dBuV/m", "dBuV", "dBuA")
 MEASUREMENTS = ("radiated", "conducted")
 
 
-class LimitError(ValueError):
+class LimitError(InputError):
     """A malformed limit file; the message names file, key and what is allowed."""
 
     def __init__(self, file: str, key: str, problem: str):

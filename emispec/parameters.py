@@ -29,7 +29,7 @@ from .readers import FileCache
 from .schema import BoardError, Key, key_unit
 from .units import parse_quantity
 
-__all__ = ["Parameter", "Template", "set_value", "split_key", "scope_of"]
+__all__ = ["Parameter", "Template", "set_value", "split_key", "scope_of", "key_label"]
 
 _SEGMENT = re.compile(r"^([A-Za-z_][A-Za-z0-9_]*)(?:\[([^\]]+)\])?$")
 
@@ -43,6 +43,16 @@ def split_key(key: str, file: str = "<board>") -> list[tuple[str, str | None]]:
             raise BoardError(file, key, f"cannot read key segment {part!r}; write e.g. clock[cpu_clk].rise_time")
         out.append(match.groups())
     return out
+
+
+def key_label(key: str) -> str:
+    """``sdram_clk.rise_time`` for ``clock[sdram_clk].rise_time``: short, and still unambiguous in a table."""
+    try:
+        segments = split_key(key)
+    except BoardError:
+        return key
+    return ".".join(sel if sel is not None and not sel.isdigit() else (f"{name}[{sel}]" if sel else name)
+                    for name, sel in segments)
 
 
 def _select(entries, name: str, selector: str, key: str, file: str) -> int:
@@ -123,9 +133,7 @@ class Parameter:
 
     @property
     def label(self) -> str:
-        """``sdram_clk.rise_time`` for ``clock[sdram_clk].rise_time``: short, and still unambiguous in a table."""
-        return ".".join(sel if sel is not None and not sel.isdigit() else (f"{name}[{sel}]" if sel else name)
-                        for name, sel in split_key(self.key))
+        return key_label(self.key)
 
     def written(self, value: float):
         """``value`` (SI) as a board file would carry it."""

@@ -37,12 +37,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .board import Board
+from .schema import BoardError
 from .coupling import common_mode_current
 from .decoupling import ABOVE_TARGET, DECOUPLING_INSUFFICIENT, NEAR_ANTI_RESONANCE, impedance_for_escape, rail_summary
 from .flags import declare
 from .limits import upper_frequency_hz
-from .readings import combine, read_rows, row_max
-from .receiver import BANDS, resolution_bandwidth_hz, sweep
+from .readings import PASSES, combine, read_rows, row_max
+from .receiver import BANDS, REACH_RBW, resolution_bandwidth_hz, sweep
 from .rows import Rows, Verdict, Worst, assemble_rows
 from .sources import Source
 from .spread import harmonic_lines, occupied_band_hz
@@ -433,7 +434,66 @@ def _cat(arrays):
     return np.concatenate(arrays) if arrays else np.array([])
 
 
-def estimate(board: Board, reuse: Reuse | None = None) -> Estimate:
+def work(board: Board) -> list[dict]:
+    """What an estimate of the board costs, per source, before any of it is done.
+
+    Each entry: the source, its key path prefix, its harmonics in the span, its spectral lines (a spread
+    harmonic n has about 2 beta_n + 8 beta_n^(1/3) + 32 of them, beta_n = n delta f0 / (2 fm)), and the
+    receiver's cells: tuning points (two per RBW across each spread band) times the lines each one reaches.
+    """
+    lo, hi = analysis_span_hz(board)
+    out = []
+    for source in board.sources:
+        n = _harmonic_numbers(source, lo, hi)
+        lines = cells = float(n.size)
+        if source.spread is not None and n.size:
+            beta = source.spread.beta(source.frequency_hz, n)
+            per_harmonic = 2 * beta + 8 * np.cbrt(beta) + 32
+            rbw = resolution_bandwidth_hz(n * source.frequency_hz)
+            points = n * source.frequency_hz * source.spread.deviation / (rbw / 2) + 3
+            reach = np.minimum(per_harmonic, 2 * REACH_RBW * rbw / source.spread.rate_hz)
+            lines, cells = float(per_harmonic.sum()), float(np.sum(points * reach))
+        out.append({"source": source, "key": f"{source.section}[{source.name}]", "harmonics": int(n.size),
+                    "lines": lines, "cells": cells, "span_hz": (lo, hi)})
+    return out
+
+
+#: What one estimate may cost before it is refused (raise with ``budget``): a few seconds and well under 1 GB.
+BUDGET = {"harmonics": 3e4, "lines": 4e6, "cells": 1e7}
+
+
+def check_budget(board: Board, budget: float = 1.0) -> None:
+    """Refuse, with the key to blame and the likely fix, an estimate whose work is beyond ``budget`` x :data:`BUDGET`.
+
+    Raises
+    ------
+    BoardError
+        Naming the source's frequency (too many harmonics: a missing unit such as "16" for "16 MHz") or its spread
+        rate (too many spectral lines or tuning points: a rate of Hz rather than kHz).
+    """
+    from .units import format_quantity
+
+    items = work(board)
+    totals = {k: sum(w[k] for w in items) for k in BUDGET}
+    for what, total in totals.items():
+        allowed = BUDGET[what] * budget
+        if total <= allowed:
+            continue
+        worst = max(items, key=lambda w: w[what])
+        source, (lo, hi) = worst["source"], worst["span_hz"]
+        if what == "harmonics":
+            key, value = f"{worst['key']}.frequency", format_quantity(source.frequency_hz, "Hz")
+            hint = (f"{value} gives {worst['harmonics']:.3g} harmonics up to {format_quantity(hi, 'Hz')}"
+                    + (f"; did you mean {source.frequency_hz:g} MHz?" if source.frequency_hz < 1e3 else ""))
+        else:
+            key, value = f"{worst['key']}.spread.rate", format_quantity(source.spread.rate_hz, "Hz")
+            hint = (f"a spread at {value} gives {worst['lines']:.3g} spectral lines up to {format_quantity(hi, 'Hz')}"
+                    + (f"; did you mean {source.spread.rate_hz:g} kHz?" if source.spread.rate_hz < 1e3 else ""))
+        raise BoardError(board.file, key, f"{hint} (the estimate's budget is {allowed:.3g} {what}; raise it with "
+                         f"--budget if you mean it)")
+
+
+def estimate(board: Board, reuse: Reuse | None = None, progress=None, budget: float = 1.0) -> Estimate:
     """Every source harmonic's reading, limit and margin, worst first.
 
     Parameters
@@ -442,19 +502,35 @@ def estimate(board: Board, reuse: Reuse | None = None) -> Estimate:
         A validated board (see :func:`emispec.board.load_board`).
     reuse : Reuse, optional
         Work shared with estimates of other boards of the same template.
+    progress : callable, optional
+        Called as ``progress(done, total)`` while the estimate runs.
+    budget : float
+        Multiplies :data:`BUDGET`, the work an estimate may take (see :func:`check_budget`).
 
     Returns
     -------
     Estimate
     """
+    check_budget(board, budget)
     lo, hi = analysis_span_hz(board)
     detectors = board.limit.detectors
-    parts = [reuse.part(board, source, lo, hi) if reuse is not None else _source_part(board, source, lo, hi)
-             for source in board.sources]
+    total = 2 * len(board.sources) + PASSES
+    done = [0]
+
+    def step():
+        done[0] += 1
+        if progress is not None:
+            progress(done[0], total)
+
+    parts = []
+    for source in board.sources:
+        parts.append(reuse.part(board, source, lo, hi) if reuse is not None else _source_part(board, source, lo, hi))
+        step()
     lines = [p.lines for p in parts]
     tunings = [dict(points=p.tuning, owner=p.owner, lo_hz=p.band_lo - p.rbw / 2, hi_hz=p.band_hi + p.rbw / 2,
                     rbw_hz=p.rbw, searched=p.source.spread is not None) for p in parts]
-    read = read_rows(lines, [s.reference for s in lines], tunings, detectors)
+    read = read_rows(lines, [s.reference for s in lines], tunings, detectors, step)
+    done[0] = len(board.sources) + PASSES
     overlaps = _overlap_flags(parts)
     columns = []
     for k, (part, rows) in enumerate(zip(parts, read)):
@@ -465,7 +541,18 @@ def estimate(board: Board, reuse: Reuse | None = None) -> Estimate:
         # the lowest limit over the row's tuning points (NaN where no line of that detector applies)
         limit = {d: -row_max(-levels[d], rows.owner, n) for d in detectors}
         columns.append(_source_columns(board, parts, k, rows, own, best, limit, overlaps[k], (lo, hi)))
+        step()
     return Estimate(board, (lo, hi), assemble_rows(columns, detectors, board.guard_band_db), tuple(lines))
+
+
+def _dominant(part: _SourcePart) -> np.ndarray:
+    """The path that carries most of each row's own reading (None where no path reads anything)."""
+    names = list(part.readings)
+    if not names:
+        return np.full(part.n.size, None, dtype=object)
+    stacked = np.vstack([part.readings[p] for p in names])
+    best = np.argmax(np.nan_to_num(stacked, nan=-1.0), axis=0)
+    return np.where(part.live, np.array(names, dtype=object)[best], None)
 
 
 def _source_columns(board: Board, parts: list[_SourcePart], k: int, readings, own: dict, best: dict, limit: dict,
@@ -515,6 +602,7 @@ def _source_columns(board: Board, parts: list[_SourcePart], k: int, readings, ow
         cable_current_dbua={p: db_micro(i) for p, i in cables.items()},
         readings={d: db_micro(reading[d]) for d in detectors},
         own_readings={d: db_micro(np.where(part.live, own[d], 0.0)) for d in detectors},
+        dominant_path=_dominant(part),
         spread_reduction_db=reduction,
         limits=limit,
         flags=flags,

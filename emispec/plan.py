@@ -11,18 +11,22 @@ __all__ = ["PLAN_COLUMNS", "plan_rows"]
 
 
 PLAN_COLUMNS = ("priority", "source", "harmonic", "frequency_hz", "band_lo_hz", "band_hi_hz", "cispr_band", "rbw_hz",
-                "detectors", "expected", "limit", "margin_db", "note")
+                "detectors", "detector", "expected", "limit", "margin_db", "path", "note")
 
 
-def plan_rows(est: Estimate, everything: bool = False) -> list[dict]:
+def plan_rows(est: Estimate, everything: bool = False, top: int = 0) -> list[dict]:
     """The frequencies to measure first, worst margin first.
 
-    Only rows over the limit or inside the guard band unless ``everything``.
+    Rows over the limit or inside the guard band; every row with ``everything``; and where none is near the
+    limit, the ``top`` closest (so a plan for a passing board still says where to look).
     """
     r = est.rows
     detectors = est.board.limit.detectors
+    finite = np.isfinite(r.worst_margin_db)
     keep = np.ones(len(r), bool) if everything else (r.flags["over-limit"] | r.flags["within-guard-band"])
-    keep &= np.isfinite(r.worst_margin_db)
+    keep &= finite
+    if not keep.any() and top:
+        keep = finite & (np.cumsum(finite) <= top)  # rows are sorted worst first
     bands = band_names(r.frequency_hz)
     rbw = resolution_bandwidth_hz(r.frequency_hz)
     out = []
@@ -63,6 +67,8 @@ def plan_rows(est: Estimate, everything: bool = False) -> list[dict]:
             "expected": float(r.readings[det][i]),
             "limit": float(r.limits[det][i]),
             "margin_db": float(r.worst_margin_db[i]),
+            "detector": str(det),
+            "path": None if r.dominant_path[i] is None else str(r.dominant_path[i]),
             "note": "; ".join(notes),
         })
     return out

@@ -9,6 +9,7 @@ import matplotlib
 import matplotlib.ticker
 
 matplotlib.use("Agg")  # files only; never needs a display
+matplotlib.rcParams["text.parse_math"] = False  # user text ("Rev $A^$") is text, never mathtext
 
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
@@ -17,9 +18,35 @@ from .columns import verdict_text  # noqa: E402
 from .pipeline import Estimate, RailView  # noqa: E402
 from .trace import Trace  # noqa: E402
 
-__all__ = ["spectrum_figure", "swept_figure", "rail_figure", "variants_figure", "png_bytes", "svg_text"]
+__all__ = ["PALETTE", "SOURCE_COLORS", "spectrum_figure", "swept_figure", "rail_figure", "variants_figure",
+           "png_bytes", "svg_text"]
 
-DETECTOR_STYLE = {"QP": "-", "PK": "-.", "AV": "--", "RMS-AV": ":"}
+#: emispec's detector palette: colour, limit-line style and reading marker per detector (README, "Plots").
+PALETTE = {
+    "PK": {"color": "#7b3294", "line": "-.", "marker": "^", "zorder": 3},
+    "QP": {"color": "#1f5fa8", "line": "-", "marker": "o", "zorder": 3},
+    "AV": {"color": "#3a8f4a", "line": "--", "marker": "s", "zorder": 2},
+    "RMS-AV": {"color": "#a67c00", "line": ":", "marker": "D", "zorder": 2},
+}
+_OTHER = {"color": "#555555", "line": "-", "marker": "o", "zorder": 2}
+#: Colours of sources and variants; none of them is the red of the over-limit marks.
+SOURCE_COLORS = ("#1b9e77", "#6a51a3", "#e08214", "#2c7fb8", "#8c510a", "#e7298a", "#66a61e", "#737373",
+                 "#17becf", "#b8a000")
+OVER_COLOR = "#d7191c"
+MARKERS = "os^vD<>ph*"
+
+
+def _style(detector: str) -> dict:
+    return PALETTE.get(detector, _OTHER)
+
+
+def _source_label(source) -> str:
+    """``sdram_clk (100 MHz)``; a pulse train per edge shows its pulse rate: ``mcu_core (pulses at 48 MHz)``."""
+    per = getattr(source, "per", None)
+    if per is not None:
+        rate = source.frequency_hz * (2 if per == "edge" else 1)
+        return f"{source.name} (pulses at {rate / 1e6:g} MHz)"
+    return f"{source.name} ({source.frequency_hz / 1e6:g} MHz)"
 
 
 def png_bytes(figure, dpi: int = 120) -> bytes:
@@ -31,7 +58,8 @@ def png_bytes(figure, dpi: int = 120) -> bytes:
 
 
 def spectrum_figure(est: Estimate, envelopes: dict[str, Trace]):
-    """Harmonic readings, the sources' envelopes through their paths, limit lines, guard band and over-limit marks.
+    """Each harmonic's reading on the detector with the least margin (marker by detector), the sources' envelopes
+    through their paths, each detector's limit line and guard band, and over-limit marks.
 
     Returns
     -------
@@ -41,25 +69,32 @@ def spectrum_figure(est: Estimate, envelopes: dict[str, Trace]):
     lo, hi = est.span_hz
     grid = np.geomspace(lo, hi, 2000)
     fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
-    reading = np.fmax.reduce([rows.readings[d] for d in limit.detectors]) if len(rows) else np.array([])
-    colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    detectors = limit.detectors
+    reading = np.full(len(rows), np.nan)
+    for det in detectors:
+        reading = np.where(rows.worst_detector == det, rows.readings[det], reading)
     for k, source in enumerate(board.sources):
-        color = colors[k % len(colors)]
+        color = SOURCE_COLORS[k % len(SOURCE_COLORS)]
         mine = rows.source == source.name
-        ax.vlines(rows.frequency_hz[mine], -200, reading[mine], color=color, lw=0.8, alpha=0.6)
-        ax.plot(rows.frequency_hz[mine], reading[mine], "o", ms=3, color=color,
-                label=f"{source.name} ({source.frequency_hz / 1e6:g} MHz)")
+        ax.vlines(rows.frequency_hz[mine], -200, reading[mine], color=color, lw=0.8, alpha=0.5)
+        for det in detectors:
+            here = mine & (rows.worst_detector == det)
+            if here.any():
+                ax.plot(rows.frequency_hz[here], reading[here], _style(det)["marker"], ms=3.5, color=color,
+                        label=f"{_source_label(source)}, {det}")
         if source.name in envelopes:  # the source's envelope through its paths (unspread)
             trace = envelopes[source.name]
-            ax.plot(trace.frequency_hz, trace.level_db, "--", lw=0.8, color=color, alpha=0.8)
+            ax.plot(trace.frequency_hz, trace.level_db, "--", lw=0.8, color=color, alpha=0.8,
+                    label=f"{source.name} envelope")
     limit_max = _limit_lines(ax, est, grid)
     over = rows.flags["over-limit"]
     if over.any():
-        ax.plot(rows.frequency_hz[over], reading[over], "x", color="red", ms=8, mew=2, label="over the limit")
+        ax.plot(rows.frequency_hz[over], reading[over], "x", color=OVER_COLOR, ms=9, mew=2, label="over the limit",
+                zorder=5)
     finite = reading[np.isfinite(reading)]
     top = max(limit_max, finite.max() if finite.size else limit_max) + 10
     ax.set_ylim(top - 100, top)
-    _finish(fig, ax, est, "estimate")
+    _finish(fig, ax, est, "readings on the detector with the least margin")
     return fig
 
 
@@ -74,8 +109,14 @@ def _finish(fig, ax, est: Estimate, what: str) -> None:
     ax.set_ylabel(f"Reading [{est.board.limit.unit}]")
     ax.set_title(f"{est.board.title}: {what} against {est.board.limit.name}\n{verdict_text(est.outcome)}", fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
-    fig.legend(fontsize=8, loc="outside right upper")
+    _legend(fig, ax)
     fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
+
+
+def _legend(fig, ax) -> None:
+    """A legend beside the plot, in as many columns as it needs to stay the height of the figure."""
+    entries = len(ax.get_legend_handles_labels()[0])
+    fig.legend(fontsize=7 if entries > 14 else 8, loc="outside right upper", ncols=max(1, -(-entries // 28)))
 
 
 def _limit_lines(ax, est: Estimate, grid) -> float:
@@ -83,7 +124,7 @@ def _limit_lines(ax, est: Estimate, grid) -> float:
     board, limit = est.board, est.board.limit
     levels = limit.levels(grid)
     for det in (d for d in limit.detectors if np.isfinite(levels[d]).sum() > 1):
-        style = DETECTOR_STYLE.get(det, "-")
+        style = _style(det)["line"]
         ax.plot(grid, levels[det], style, color="black", lw=1.6, label=f"limit {det}")
         if board.guard_band_db > 0:
             ax.plot(grid, levels[det] - board.guard_band_db, style, color="gray", lw=0.9,
@@ -100,11 +141,12 @@ def swept_figure(est: Estimate, swept: dict[str, Trace]):
     """
     lo, hi = est.span_hz
     fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
-    colors = {"PK": "tab:red", "QP": "tab:blue", "AV": "tab:green", "RMS-AV": "tab:purple"}
     top = -np.inf
-    for det, trace in swept.items():
+    for det, trace in swept.items():  # AV under QP under PK: the lower readings stay visible
         level = trace.level_db
-        ax.plot(trace.frequency_hz, level, lw=0.8, color=colors.get(det), label=f"swept {det}")
+        style = _style(det)
+        ax.plot(trace.frequency_hz, level, lw=0.8, color=style["color"], zorder=style["zorder"],
+                label=f"swept {det}")
         if np.isfinite(level).any():
             top = max(top, np.nanmax(level))
     limit_max = _limit_lines(ax, est, np.geomspace(lo, hi, 4000))
@@ -136,11 +178,10 @@ def rail_figure(est: Estimate, rail: RailView):
         ax.axhline(rail.target_ohm, color="tab:orange", lw=1.2, label=f"target {rail.target_ohm:g} ohm")
     rows = est.rows
     names = [s.name for s in board.sources if s.rail == rail_name]
-    colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     for k, name in enumerate(names):
         emitting = np.isfinite(np.fmax.reduce([rows.readings[d] for d in board.limit.detectors]))
         mine = (rows.source == name) & np.isfinite(rows.decoupling_impedance_ohm) & emitting
-        color = colors[k % len(colors)]
+        color = SOURCE_COLORS[[s.name for s in board.sources].index(name) % len(SOURCE_COLORS)]
         ax.plot(rows.frequency_hz[mine], rows.decoupling_impedance_ohm[mine], "o", ms=3, color=color,
                 label=f"{name} harmonics")
         need = mine & np.isfinite(rows.required_impedance_ohm)
@@ -148,16 +189,17 @@ def rail_figure(est: Estimate, rail: RailView):
                 label=f"{name}: required |Z_dec|")
     failing = rows.flags["decoupling-insufficient"] & np.isin(rows.source, names)
     if failing.any():
-        ax.plot(rows.frequency_hz[failing], rows.decoupling_impedance_ohm[failing], "x", color="red", ms=8, mew=2,
-                label="decoupling insufficient")
+        ax.plot(rows.frequency_hz[failing], rows.decoupling_impedance_ohm[failing], "x", color=OVER_COLOR, ms=8,
+                mew=2, label="decoupling insufficient")
     ax.axvspan(lo, hi, color="tab:blue", alpha=0.05, label="analysed span")
     ax.set_xlim(grid[0], grid[-1])
     ax.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda x, _: f"{x / 1e6:g}"))
+    ax.yaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda y, _: f"{y:g}"))
     ax.set_xlabel("Frequency [MHz]")
     ax.set_ylabel("|Z| [ohm]")
     ax.set_title(f"{board.title}: rail {rail_name} ({rail.voltage_v:g} V)", fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
-    fig.legend(fontsize=8, loc="outside right upper")
+    _legend(fig, ax)
     fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
     return fig
 
@@ -172,13 +214,13 @@ def variants_figure(variants):
     est0 = variants[0].estimate
     lo, hi = est0.span_hz
     fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
-    markers = "os^vD<>ph*"
     top = -np.inf
-    for k, variant in enumerate(variants):
+    for k, variant in enumerate(variants):  # colour and marker together: 100 distinct styles
         rows = variant.estimate.rows
         reading = np.fmax.reduce([rows.readings[d] for d in variant.estimate.board.limit.detectors])
         seen = np.isfinite(reading)
-        ax.plot(rows.frequency_hz[seen], reading[seen], markers[k % len(markers)], ms=4, mfc="none",
+        ax.plot(rows.frequency_hz[seen], reading[seen], MARKERS[(k // len(SOURCE_COLORS)) % len(MARKERS)], ms=4,
+                mfc="none", color=SOURCE_COLORS[k % len(SOURCE_COLORS)],
                 label=f"{variant.label}: worst {variant.worst_margin_db():+.1f} dB")
         if seen.any():
             top = max(top, reading[seen].max())

@@ -25,6 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .errors import InputError
 from .units import QuantityError, parse_quantity
 
 if sys.version_info >= (3, 11):
@@ -50,7 +51,7 @@ __all__ = [
 MAX_BYTES = 16 * 1024 * 1024
 
 
-class FileError(ValueError):
+class FileError(InputError):
     """A file that cannot be used: the file, where in it, and what is wrong."""
 
     def __init__(self, file: str, where: str, problem: str):

@@ -148,7 +148,11 @@ def _inside(rows: RowReadings, points: np.ndarray, owner: np.ndarray):
     return points[keep], owner[keep]
 
 
-def read_rows(lines, references, tunings, detectors) -> list[RowReadings]:
+#: How many reading passes :func:`read_rows` makes at most (for progress reports).
+PASSES = 2 + len(SEARCH_STEPS)
+
+
+def read_rows(lines, references, tunings, detectors, progress=None) -> list[RowReadings]:
     """Read every source's rows.
 
     Parameters
@@ -162,12 +166,16 @@ def read_rows(lines, references, tunings, detectors) -> list[RowReadings]:
         ``hi_hz`` and ``rbw_hz`` per row (its tuning range and bandwidth), ``searched`` (whether the rows are
         refined around their maxima: spread rows).
     detectors : tuple of str
+    progress : callable, optional
+        Called with no argument after each pass (at most :data:`PASSES`).
     """
     rows = [RowReadings(len(t["lo_hz"]), t["points"], t["owner"], t["lo_hz"], t["hi_hz"], t["rbw_hz"], t["searched"],
                  [], {}) for t in tunings]
     for part, (per_source, combined) in zip(rows, _read_all(lines, references, [(r.points, r.owner) for r in rows],
                                                             detectors)):
         part.per_source, part.combined = per_source, combined
+    if progress is not None:
+        progress()
     for search in (_local_maxima, *(lambda r, s=s: _around_best(r, s) for s in SEARCH_STEPS)):
         batches = [search(r) if r.searched and r.points.size else (np.array([]), np.array([], dtype=np.int64))
                    for r in rows]
@@ -176,4 +184,6 @@ def read_rows(lines, references, tunings, detectors) -> list[RowReadings]:
         for part, batch, (per_source, combined) in zip(rows, batches, _read_all(lines, references, batches,
                                                                                  detectors)):
             part.extend(batch[0], batch[1], per_source, combined)
+        if progress is not None:
+            progress()
     return rows

@@ -36,7 +36,6 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.fft
 
 __all__ = [
     "Band",
@@ -58,9 +57,41 @@ __all__ = [
 #: the AV mean agree with the brute-force receiver within 0.005 dB at 2.
 OVERSAMPLING = {"QP": 4, "other": 2}
 
-#: Threads for each batch of envelope FFTs (-1: all cores).  A process pool's
-#: workers set 1, so that two processes do not fight over the same cores.
+#: Threads for each large batch of envelope FFTs (-1: all cores).  A process
+#: pool's workers set 1, so that two processes do not fight over the same cores.
 FFT_WORKERS = -1
+#: Batches of at least this many cells go to scipy.fft with threads; smaller ones
+#: to numpy.fft (the same pocketfft, the same numbers, and no scipy import at start).
+THREADED_FFT_CELLS = 1 << 20
+
+
+def _smooth_numbers(limit: int = 1 << 26) -> np.ndarray:
+    """Every 11-smooth number (2^a 3^b 5^c 7^d 11^e) up to ``limit``, ascending."""
+    values = np.array([1], dtype=np.int64)
+    for prime in (2, 3, 5, 7, 11):
+        powers = prime ** np.arange(int(np.log(limit) / np.log(prime)) + 1, dtype=np.int64)
+        values = np.outer(values, powers).ravel()
+        values = values[values <= limit]
+    return np.sort(values)
+
+
+_SMOOTH: np.ndarray | None = None
+
+
+def next_fast_len(n: int) -> int:
+    """The smallest 11-smooth number >= n: the FFT lengths pocketfft transforms fastest (scipy.fft.next_fast_len)."""
+    global _SMOOTH
+    if _SMOOTH is None:
+        _SMOOTH = _smooth_numbers()
+    return int(_SMOOTH[np.searchsorted(_SMOOTH, n)])
+
+
+def _ifft_rows(spectrum: np.ndarray) -> np.ndarray:
+    if spectrum.size >= THREADED_FFT_CELLS:
+        import scipy.fft  # threads pay off on large batches
+
+        return scipy.fft.ifft(spectrum, axis=1, workers=FFT_WORKERS, overwrite_x=True)
+    return np.fft.ifft(spectrum, axis=1)
 
 #: Lines further than this many bandwidths from the tuning frequency are out of
 #: the filter's reach (|H| < 5e-6, -106 dB).
@@ -393,7 +424,7 @@ def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, band, detectors
     span = int(bins.max()) + 1
     # 4x oversampled envelope; the peak is refined between samples (_peak_refined)
     qp = "QP" in detectors and DETECTORS["QP"].available(band)
-    n_fft = scipy.fft.next_fast_len(max(32, OVERSAMPLING["QP" if qp else "other"] * span))
+    n_fft = next_fast_len(max(32, OVERSAMPLING["QP" if qp else "other"] * span))
     # padding cells go to an extra column that is dropped before the transform
     bins = np.where(present, bins, n_fft)
     rows = np.arange(tuning.size)[:, None]
@@ -408,6 +439,6 @@ def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, band, detectors
         added.real = np.bincount(flat, weights[clash].real.ravel(), cells)
         added.imag = np.bincount(flat, weights[clash].imag.ravel(), cells)
         spectrum[clash] = added.reshape(clash.size, n_fft + 1)
-    env = np.abs(scipy.fft.ifft(spectrum[:, :n_fft], axis=1, workers=FFT_WORKERS, overwrite_x=True))
+    env = np.abs(_ifft_rows(spectrum[:, :n_fft]))
     env *= n_fft
     return detect(env, 1.0 / grid_hz, band, detectors)

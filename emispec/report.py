@@ -16,31 +16,27 @@ import html
 import io
 import json
 import math
-import os
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from . import __version__
-from .columns import column_values, columns_for, header_cells, json_row, text_cells, verdict_text
+from . import CAUTION, __version__
+from .columns import column_values, columns_for, header_cells, json_row, text_cells, unit_token, verdict_text
+from .flags import FLAGS
 from .flags import names as flag_names
 from .pipeline import Estimate, RailView, envelope_traces, rail_view, swept_spectrum
-from .plan import PLAN_COLUMNS
+from .parameters import key_label
+from .outputs import write_set
 from .trace import Trace
 
 __all__ = [
     "CAUTION", "SCHEMA", "Views", "views_of", "result_dict", "row_dict", "csv_text", "swept_csv_text",
-    "markdown_text", "atomic_write", "write_outputs", "plan_csv_text", "plan_markdown_text", "variants_rows",
+    "markdown_text", "output_files", "write_outputs", "plan_csv_text", "plan_markdown_text", "variants_rows",
     "variants_csv_text", "html_text",
 ]
 
 SCHEMA = "emispec.result/1"
-CAUTION = (
-    "Estimate only: final compliance is decided by measurement at an accredited lab "
-    "under the applicable regulations and standards."
-)
 
 
 def _num(x, digits: int = 3):
@@ -122,42 +118,46 @@ def _table(est: Estimate, output: str, count: int | None = None) -> tuple[list[s
     return header_cells(est, columns, output), [text_cells(est, columns, values, i, output) for i in range(rows)]
 
 
-def csv_text(est: Estimate) -> str:
-    """All rows, worst first; levels in the limit's unit."""
+def _csv(header: list[str], rows) -> str:
     buffer = io.StringIO()
-    buffer.write(f"# {CAUTION}\n# levels in {est.board.limit.unit}; limit {est.board.limit.name}\n")
     writer = csv.writer(buffer, lineterminator="\n")
-    head, rows = _table(est, "csv")
-    writer.writerow(head)
+    writer.writerow(header)
     writer.writerows(rows)
     return buffer.getvalue()
 
 
+def csv_text(est: Estimate) -> str:
+    """All rows, worst first: a header with the unit in every name, then one line per row (empty: no value)."""
+    head, rows = _table(est, "csv")
+    return _csv(head, rows)
+
+
+def _csv_number(x, digits: int = 2) -> str:
+    return "" if x is None or not math.isfinite(x) else f"{x:.{digits}f}"
+
+
 def swept_csv_text(est: Estimate, swept: dict[str, Trace]) -> str:
-    """The swept spectrum: frequency, detector readings and the limit's lines, in the limit's unit."""
+    """The swept spectrum: frequency [MHz], each detector's reading and the limit's lines, in the limit's unit."""
     frequency_hz = next(iter(swept.values())).frequency_hz
     limits = est.board.limit.levels(frequency_hz)
-    buffer = io.StringIO()
-    buffer.write(f"# {CAUTION}\n# swept receiver readings in {est.board.limit.unit}, all sources together; "
-                 "steps of RBW/2 plus every unmodulated line\n")
-    writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(["frequency_hz", *swept, *(f"limit_{d}" for d in limits)])
-    for k, f in enumerate(frequency_hz):
-        writer.writerow([f"{f:.10g}", *(_cell(t.level_db[k]) for t in swept.values()),
-                         *(_cell(v[k]) for v in limits.values())])
-    return buffer.getvalue()
-
-
-def _cell(x) -> str:
-    return "null" if x is None or (isinstance(x, float) and not math.isfinite(x)) else f"{x:.2f}"
+    unit = unit_token(est.board.limit.unit)
+    head = ["frequency_mhz", *(f"reading_{d.lower()}_{unit}" for d in swept),
+            *(f"limit_{d.lower()}_{unit}" for d in limits)]
+    rows = ([f"{f / 1e6:.4f}", *(_csv_number(t.level_db[k]) for t in swept.values()),
+             *(_csv_number(v[k]) for v in limits.values())] for k, f in enumerate(frequency_hz))
+    return _csv(head, rows)
 
 
 def _md_escape(text: str) -> str:
-    return text.replace("|", "\\|").replace("<", "&lt;").replace(">", "&gt;")
+    return text.replace("\\", "\\\\").replace("|", "\\|").replace("<", "&lt;").replace(">", "&gt;")
 
 
-def markdown_text(est: Estimate, count: int = 50) -> str:
-    """A readable report: verdict, limit, and the worst rows."""
+def _legend() -> str:
+    return "; ".join(f"{f.short}: {f.meaning}" for f in sorted(FLAGS.values(), key=lambda f: f.rank))
+
+
+def markdown_text(est: Estimate, count: int = 20) -> str:
+    """A summary a reviewer reads on a slide: verdict, limit, assumptions, and the worst rows."""
     b, lim = est.board, est.board.limit
     head, rows = _table(est, "md", count)
     lines = [
@@ -167,7 +167,7 @@ def markdown_text(est: Estimate, count: int = 50) -> str:
         "",
         f"**Verdict:** {_md_escape(est.verdict())}",
         "",
-        f"- Board file: `{b.file}` (sha256 `{b.sha256[:16]}`)",
+        f"- Board file: `{_md_escape(b.file)}` (sha256 `{b.sha256[:16]}`)",
         f"- Limit: {_md_escape(lim.title)} (`{lim.name}`), {lim.measurement}"
         + (f" at {lim.distance_m:g} m" if lim.distance_m else "")
         + f", {lim.unit}; source: {_md_escape(lim.source)}",
@@ -175,14 +175,15 @@ def markdown_text(est: Estimate, count: int = 50) -> str:
         f"- {_combination_line(b)}",
         f"- emispec {__version__}",
         "",
-        f"## Worst {min(count, len(est.rows))} of {len(est.rows)} harmonics",
+        f"## Worst {min(count, len(est.rows))} of {len(est.rows)} harmonics ({lim.unit}; margins in dB)",
         "",
         "| " + " | ".join(head) + " |",
         "|" + "---|" * len(head),
     ]
     lines += ["| " + " | ".join(_md_escape(c) for c in row) + " |" for row in rows]
-    flags = ", ".join(flag_names())
-    lines += ["", f"Flags: {flags}. Levels in {lim.unit}; `null` marks a spectral null or a missing value.", ""]
+    lines += ["", f"Reading, limit and margin are the detector with the least margin (det); path carries most of "
+              f"the reading. Flags: {_md_escape(', '.join(flag_names()))}. `-` marks a value that does not exist.",
+              "", "Every row, every detector and every path: estimate.csv and estimate.json.", ""]
     return "\n".join(lines)
 
 
@@ -191,89 +192,52 @@ def file_part(name: str) -> str:
     return "".join(c if c.isalnum() or c in "-_." else "_" for c in name)
 
 
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
-_UMASK = _umask()
-
-
-def atomic_write(path: Path, data: str | bytes) -> None:
-    """Write ``data`` to a temporary file beside ``path``, then rename it into place."""
-    path = Path(path)
-    mode = "wb" if isinstance(data, bytes) else "w"
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8", "newline": ""})) as handle:
-            handle.write(data)
-        os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; give the file the permissions open() would
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-
-
 def json_text(est: Estimate) -> str:
     return json.dumps(result_dict(est), indent=1, allow_nan=False) + "\n"
 
 
-def write_outputs(est: Estimate, out_dir: Path, stem: str = "estimate", views: Views | None = None) -> list[Path]:
-    """Write CSV, Markdown, JSON, the swept spectrum and the plots (spectrum, swept, rails) into ``out_dir``.
+def output_files(est: Estimate, stem: str = "estimate", views: Views | None = None, rows: int = 20) -> dict:
+    """Every file ``estimate --out`` writes: name -> function giving its contents.
 
-    All files are first rendered into a temporary folder inside ``out_dir``
-    and then renamed into place, so a failure leaves nothing half-written.
+    ``<stem>.json``, ``<stem>.csv`` (every row), ``<stem>.md`` (the summary), ``<stem>-swept.csv``,
+    ``<stem>-spectrum.png``, ``<stem>-swept.png`` and ``<stem>-rail-<name>.png`` for each rail.
     """
     from .plot import png_bytes, rail_figure, spectrum_figure, swept_figure  # matplotlib is slow to import
 
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(dir=out_dir, prefix=".emispec-"))
-    try:
-        views = views or views_of(est)
-        contents = {
-            f"{stem}.json": json_text(est),
-            f"{stem}.csv": csv_text(est),
-            f"{stem}.md": markdown_text(est),
-            f"{stem}-swept.csv": swept_csv_text(est, views.swept),
-        }
-        for name, text in contents.items():
-            (staging / name).write_text(text, encoding="utf-8")
-        figures = [(f"{stem}-spectrum.png", lambda: spectrum_figure(est, views.envelopes)),
-                   (f"{stem}-swept.png", lambda: swept_figure(est, views.swept))]
-        figures += [(f"{stem}-rail-{file_part(name)}.png", lambda name=name: rail_figure(est, views.rails[name]))
-                    for name in est.board.rails]
-        for name, draw in figures:
-            (staging / name).write_bytes(png_bytes(draw()))
-        written = []
-        for item in sorted(staging.iterdir()):
-            os.replace(item, out_dir / item.name)
-            written.append(out_dir / item.name)
-        return written
-    finally:
-        for item in staging.iterdir():
-            item.unlink()
-        staging.rmdir()
+    views = views or views_of(est)
+    files = {
+        f"{stem}.json": lambda: json_text(est),
+        f"{stem}.csv": lambda: csv_text(est),
+        f"{stem}.md": lambda: markdown_text(est, rows),
+        f"{stem}-swept.csv": lambda: swept_csv_text(est, views.swept),
+        f"{stem}-spectrum.png": lambda: png_bytes(spectrum_figure(est, views.envelopes)),
+        f"{stem}-swept.png": lambda: png_bytes(swept_figure(est, views.swept)),
+    }
+    for name in est.board.rails:
+        files[f"{stem}-rail-{file_part(name)}.png"] = lambda name=name: png_bytes(rail_figure(est, views.rails[name]))
+    return files
+
+
+def write_outputs(est: Estimate, out_dir: Path, stem: str = "estimate", views: Views | None = None,
+                  rows: int = 20) -> list[Path]:
+    """Write every file of :func:`output_files` into ``out_dir`` as one set (see :func:`emispec.outputs.write_set`)."""
+    return write_set(out_dir, output_files(est, stem, views, rows))
 
 
 # ---------------------------------------------------------------- test plan, variants, HTML
 
 
 def plan_csv_text(est: Estimate, plan: list[dict]) -> str:
-    """The test plan as CSV, levels in the limit's unit."""
-    buffer = io.StringIO()
-    buffer.write(f"# {CAUTION}\n# test plan for {est.board.title}; levels in {est.board.limit.unit}\n")
-    writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(PLAN_COLUMNS)
-    for row in plan:
-        writer.writerow([_plan_cell(row[c]) for c in PLAN_COLUMNS])
-    return buffer.getvalue()
-
-
-def _plan_cell(value) -> str:
-    return f"{value:.6g}" if isinstance(value, float) else str(value)
+    """The test plan as CSV: units in the names, frequencies in MHz, levels to 0.01 dB, no comment lines."""
+    unit = unit_token(est.board.limit.unit)
+    head = ["priority", "source", "harmonic", "frequency_mhz", "band_lo_mhz", "band_hi_mhz", "cispr_band", "rbw_khz",
+            "detectors", "detector", f"expected_{unit}", f"limit_{unit}", "margin_db", "path", "note"]
+    rows = ([row["priority"], row["source"], row["harmonic"], f"{row['frequency_hz'] / 1e6:.3f}",
+             f"{row['band_lo_hz'] / 1e6:.3f}", f"{row['band_hi_hz'] / 1e6:.3f}", row["cispr_band"],
+             f"{row['rbw_hz'] / 1e3:g}", row["detectors"], row["detector"], _csv_number(row["expected"]),
+             _csv_number(row["limit"]), _csv_number(row["margin_db"]), row["path"] or "", row["note"]]
+            for row in plan)
+    return _csv(head, rows)
 
 
 def _plan_frequency(row: dict) -> str:
@@ -282,48 +246,53 @@ def _plan_frequency(row: dict) -> str:
     return f"{row['frequency_hz'] / 1e6:.6g} MHz"
 
 
-def plan_markdown_text(est: Estimate, plan: list[dict]) -> str:
+def plan_markdown_text(est: Estimate, plan: list[dict], passing: bool = False) -> str:
     """The test plan as a Markdown table, worst first."""
     unit = est.board.limit.unit
+    what = ("None is over the limit or inside the guard band; these are the closest." if passing else
+            "Over the limit or inside the guard band, worst margin first.")
     lines = [f"# Test plan: {_md_escape(est.board.title)}", "", f"> {CAUTION}", "",
              f"Limit {est.board.limit.name} ({unit}), guard band {est.board.guard_band_db:g} dB. "
-             f"{len(plan)} frequencies, worst margin first.", "",
-             f"| # | source | n | frequency | CISPR band | RBW | detectors | expected {unit} | limit | margin dB | note |",
-             "|---|---|---|---|---|---|---|---|---|---|---|"]
+             f"{len(plan)} frequencies. {what}", "",
+             f"| # | source | n | frequency | CISPR band | RBW | detectors | expected {unit} | limit | margin dB | path "
+             "| note |",
+             "|---|---|---|---|---|---|---|---|---|---|---|---|"]
     for row in plan:
         lines.append(
             f"| {row['priority']} | {_md_escape(row['source'])} | {row['harmonic']} | {_plan_frequency(row)} | "
             f"{row['cispr_band']} | {row['rbw_hz'] / 1e3:g} kHz | {row['detectors']} | {row['expected']:.1f} | "
-            f"{row['limit']:.1f} | {row['margin_db']:.1f} | {_md_escape(row['note'])} |")
+            f"{row['limit']:.1f} | {row['margin_db']:.1f} | {_md_escape(row['path'] or '-')} | "
+            f"{_md_escape(row['note'])} |")
     return "\n".join(lines) + "\n"
 
 
 def variants_rows(variants) -> list[dict]:
-    """Per variant: settings, worst margin and counts, overall and per detector."""
+    """Per variant: each swept key's value, the worst margin, where it is, and counts, overall and per detector.
+
+    Detectors are the union over the variants (a variant may use another limit); a detector a variant's limit
+    does not have is None.
+    """
+    detectors = list(dict.fromkeys(d for v in variants for d in v.estimate.board.limit.detectors))
     out = []
     for v in variants:
-        dets = v.estimate.board.limit.detectors
-        row = {"variant": v.label, "settings": {k: str(x) for k, x in v.settings},
-               "worst_margin_db": _num(v.worst_margin_db()), "over_limit": v.counts()[0],
-               "within_guard_band": v.counts()[1]}
-        for d in dets:
-            over, guard = v.counts(d)
-            row[f"worst_{d}"] = _num(v.worst_margin_db(d))
-            row[f"over_{d}"], row[f"guard_{d}"] = over, guard
+        row = {key_label(k): str(x) for k, x in v.settings}
+        over, guard = v.counts()
+        row.update({"worst_margin_db": _num(v.worst_margin_db()), "worst_at": v.worst_at(), "over_limit": over,
+                    "within_guard_band": guard})
+        own = v.estimate.board.limit.detectors
+        for d in detectors:
+            over_d, guard_d = v.counts(d) if d in own else (None, None)
+            row[f"worst_margin_{d.lower()}_db"] = _num(v.worst_margin_db(d)) if d in own else None
+            row[f"over_{d.lower()}"], row[f"guard_{d.lower()}"] = over_d, guard_d
         out.append(row)
     return out
 
 
 def variants_csv_text(variants) -> str:
+    """The variants as CSV: one column per swept key, empty cells where a detector does not apply."""
     rows = variants_rows(variants)
-    buffer = io.StringIO()
-    buffer.write(f"# {CAUTION}\n")
-    columns = [c for c in rows[0] if c != "settings"]
-    writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(columns)
-    for row in rows:
-        writer.writerow(["null" if row[c] is None else row[c] for c in columns])
-    return buffer.getvalue()
+    columns = list(rows[0])
+    return _csv(columns, ([("" if row[c] is None else row[c]) for c in columns] for row in rows))
 
 
 ASSUMPTIONS = (
@@ -357,49 +326,87 @@ def _combination_line(board) -> str:
 _VERDICT_CLASS = {"fails": "FAILS", "marginal": "MARGINAL", "meets": "MEETS", "no-data": "NO"}
 
 _CSS = """
-body{font-family:system-ui,sans-serif;margin:2em;max-width:1200px;color:#222}
+body{font-family:system-ui,sans-serif;margin:2em auto;max-width:1200px;padding:0 1em;color:#222}
 h1{font-size:1.5em} h2{font-size:1.2em;margin-top:2em;border-bottom:1px solid #ccc}
 .caution{background:#fff4e5;border-left:4px solid #e69500;padding:.6em 1em}
 .verdict{font-weight:bold;padding:.5em 1em;border-radius:4px}
 .FAILS{background:#fde2e2}.MARGINAL{background:#fff4cc}.MEETS{background:#e2f5e2}
+.wide{max-width:100%;overflow-x:auto}
 table{border-collapse:collapse;font-size:.85em;margin:.5em 0}
-th,td{border:1px solid #ccc;padding:.2em .5em;text-align:right} th{background:#f0f0f0}
-td.text{text-align:left} tr.over td{background:#fde2e2} tr.guard td{background:#fff4cc}
+th,td{border:1px solid #ccc;padding:.2em .5em;text-align:right;vertical-align:top} th{background:#f0f0f0}
+td.text{text-align:left;white-space:normal;overflow-wrap:anywhere;min-width:6em}
+tr.over td{background:#fde2e2} tr.guard td{background:#fff4cc}
 figure{margin:1em 0} svg{max-width:100%;height:auto}
 """
+
+#: Headings of the test plan and variant tables.
+_PLAN_HEADINGS = {"priority": "#", "source": "source", "harmonic": "n", "frequency_hz": "MHz",
+                  "cispr_band": "CISPR band", "rbw_hz": "RBW kHz", "detectors": "detectors", "detector": "det",
+                  "expected": "expected", "limit": "limit", "margin_db": "margin dB", "path": "path", "note": "note"}
+
+
+def _plural(count: int, word: str) -> str:
+    return f"{count} {word}" + ("" if count == 1 else "s")
+
+
+def _html_table(head: list[str], rows: list[list[str]], text_columns: set[int], classes=None) -> str:
+    out = ['<div class="wide"><table><thead><tr>' + "".join(f"<th>{html.escape(h)}</th>" for h in head)
+           + "</tr></thead><tbody>"]
+    for i, cells in enumerate(rows):
+        cls = f' class="{classes[i]}"' if classes and classes[i] else ""
+        out.append(f"<tr{cls}>" + "".join(
+            f'<td class="text">{html.escape(c)}</td>' if k in text_columns else f"<td>{html.escape(c)}</td>"
+            for k, c in enumerate(cells)) + "</tr>")
+    return "".join(out) + "</tbody></table></div>"
 
 
 def _html_rows_table(est: Estimate, count: int) -> str:
     r = est.rows
+    columns = columns_for(est, "html")
     head, rows = _table(est, "html", count)
-    text_columns = {0, len(head) - 1}  # the source and the flags read left-aligned
-    out = ["<table><thead><tr>" + "".join(f"<th>{html.escape(h)}</th>" for h in head) + "</tr></thead><tbody>"]
-    for i, cells in enumerate(rows):
-        cls = "over" if r.flags["over-limit"][i] else "guard" if r.flags["within-guard-band"][i] else ""
-        out.append(f'<tr class="{cls}">' + "".join(
-            f'<td class="text">{html.escape(c)}</td>' if k in text_columns else f"<td>{html.escape(c)}</td>"
-            for k, c in enumerate(cells)) + "</tr>")
-    return "".join(out) + "</tbody></table>"
+    text_columns = {k for k, c in enumerate(columns) if c.kind in ("text", "flags")}
+    classes = ["over" if r.flags["over-limit"][i] else "guard" if r.flags["within-guard-band"][i] else ""
+               for i in range(len(rows))]
+    return _html_table(head, rows, text_columns, classes)
 
 
-def _html_dict_table(rows: list[dict], columns) -> str:
-    def fmt(v):
-        if v is None:
-            return "null"
-        return f"{v:.4g}" if isinstance(v, float) else str(v)
-
-    out = ["<table><thead><tr>" + "".join(f"<th>{html.escape(str(c))}</th>" for c in columns) + "</tr></thead><tbody>"]
-    for row in rows:
-        out.append("<tr>" + "".join(
-            f'<td class="{"text" if isinstance(row[c], str) else ""}">{html.escape(fmt(row[c]))}</td>'
-            for c in columns) + "</tr>")
-    return "".join(out) + "</tbody></table>"
+def _html_plan_table(plan: list[dict]) -> str:
+    columns = list(_PLAN_HEADINGS)
+    rows = [[str(row["priority"]), row["source"], str(row["harmonic"]), _plan_frequency(row).removesuffix(" MHz"),
+             row["cispr_band"], f"{row['rbw_hz'] / 1e3:g}", row["detectors"], row["detector"],
+             f"{row['expected']:.1f}", f"{row['limit']:.1f}", f"{row['margin_db']:.1f}", row["path"] or "-",
+             row["note"]] for row in plan]
+    text = {columns.index(c) for c in ("source", "cispr_band", "detectors", "detector", "path", "note")}
+    return _html_table([_PLAN_HEADINGS[c] for c in columns], rows, text)
 
 
-def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 60, views: Views | None = None) -> str:
+def _variant_heading(name: str) -> str:
+    words = {"worst_margin_db": "worst dB", "worst_at": "worst at", "over_limit": "over",
+             "within_guard_band": "in guard band"}
+    if name in words:
+        return words[name]
+    for prefix, word in (("worst_margin_", "worst dB"), ("over_", "over"), ("guard_", "in guard band")):
+        if name.startswith(prefix):
+            return f"{name[len(prefix):].removesuffix('_db').upper()} {word}"
+    return name
+
+
+def _html_variants_table(variants) -> str:
+    table = variants_rows(variants)
+    columns = list(table[0])
+    rows = [["-" if row[c] is None else f"{row[c]:.1f}" if isinstance(row[c], float) else str(row[c])
+             for c in columns] for row in table]
+    keys = {key_label(k) for k, _ in variants[0].settings}
+    text = {k for k, c in enumerate(columns) if c in keys or c == "worst_at"}
+    return _html_table([_variant_heading(c) for c in columns], rows, text)
+
+
+def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 20, views: Views | None = None,
+              passing: bool = False) -> str:
     """One self-contained HTML report: inline SVG plots, no scripts, no external assets.
 
-    User text (titles, names, notes) is escaped.
+    User text (titles, names, notes) is escaped.  ``rows`` is how many of the worst rows the margin table
+    shows; ``passing`` says that the plan lists the closest rows of a board that keeps its guard band.
     """
     from .plot import rail_figure, spectrum_figure, svg_text, swept_figure, variants_figure
 
@@ -411,8 +418,13 @@ def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 60, vi
                ("Swept receiver readings (all sources)", swept_figure(est, views.swept))]
     figures += [(f"Rail {name}: |Z_dec| and what each harmonic needs", rail_figure(est, views.rails[name]))
                 for name in b.rails]
+    counts = ", ".join([_plural(len(b.clocks), "clock"), _plural(len(b.currents), "current source"),
+                        _plural(len(b.rails), "rail"), _plural(len(b.paths), "path")])
+    plan_title = (f"Test plan ({len(plan)} closest frequencies; all keep the guard band)" if passing
+                  else f"Test plan ({len(plan)} frequencies, worst first)")
     parts = [
         "<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f"<title>{html.escape(b.title)} - emispec estimate</title>", f"<style>{_CSS}</style></head><body>",
         f"<h1>{html.escape(b.title)}</h1>",
         f'<p class="caution">{html.escape(CAUTION)}</p>',
@@ -423,21 +435,20 @@ def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 60, vi
         + (f" at {lim.distance_m:g} m" if lim.distance_m else "") + f", {html.escape(lim.unit)}; source: "
         f"{html.escape(lim.source)}</li>",
         f"<li>Guard band {b.guard_band_db:g} dB; analysed {est.span_hz[0] / 1e6:g} to {est.span_hz[1] / 1e6:g} MHz; "
-        f"{len(b.clocks)} clocks, {len(b.currents)} current sources, {len(b.rails)} rails, {len(b.paths)} paths</li>",
+        f"{counts}</li>",
         f"<li>emispec {html.escape(__version__)}</li></ul><ul>",
         *(f"<li>{html.escape(a)}</li>" for a in (*ASSUMPTIONS, _combination_line(b))),
         "</ul>",
         f"<h2>Margin table (worst {min(rows, len(est.rows))} of {len(est.rows)}, {html.escape(lim.unit)})</h2>",
         _html_rows_table(est, rows),
+        f"<p>Flags: {html.escape(_legend())}.</p>",
     ]
     parts += [f"<h2>{html.escape(title)}</h2><figure>{svg_text(fig)}</figure>" for title, fig in figures]
     if variants:
-        table = variants_rows(variants)
-        columns = [c for c in table[0] if c != "settings"]
-        parts += ["<h2>Variants</h2>", _html_dict_table(table, columns),
+        parts += ["<h2>Variants</h2>", _html_variants_table(variants),
                   f"<figure>{svg_text(variants_figure(variants))}</figure>"]
-    parts += [f"<h2>Test plan ({len(plan)} frequencies, worst first)</h2>",
-              _html_dict_table(plan, PLAN_COLUMNS) if plan else "<p>Nothing within the guard band.</p>",
+    parts += [f"<h2>{html.escape(plan_title)}</h2>",
+              _html_plan_table(plan) if plan else "<p>Nothing within the guard band.</p>",
               f'<p class="caution">{html.escape(CAUTION)}</p>',
               f"<p>emispec {html.escape(__version__)}; input sha256 {html.escape(b.sha256)}</p></body></html>"]
     return "\n".join(parts) + "\n"

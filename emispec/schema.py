@@ -19,6 +19,7 @@ from __future__ import annotations
 import difflib
 from dataclasses import dataclass, replace
 
+from .errors import InputError
 from .units import DIMENSIONS, QuantityError, from_db, parse_quantity
 
 __all__ = ["BoardError", "Key", "TableReader", "NUMERIC_KINDS", "key_unit"]
@@ -27,7 +28,7 @@ __all__ = ["BoardError", "Key", "TableReader", "NUMERIC_KINDS", "key_unit"]
 NUMERIC_KINDS = frozenset(DIMENSIONS) | {"count", "number", "gain"}
 
 
-class BoardError(ValueError):
+class BoardError(InputError):
     """A board file problem: file, key path, value and what is allowed."""
 
     def __init__(self, file: str, key: str, problem: str, value: object = None):

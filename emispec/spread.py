@@ -77,7 +77,7 @@ class Spread:
             raise ValueError("deviation must be in (0, 10 %] and rate > 0 Hz")
 
     KEYS = (
-        Key("mode", "choice", choices=MODES),
+        Key("mode", "choice", choices=MODES + ("center",)),  # both spellings are in use in the trade
         Key("deviation", "ratio", low=0.0, high=0.1),
         Key("rate", "frequency", low=0.0),
         Key("profile", "choice", default="triangle", choices=PROFILES),
@@ -89,7 +89,8 @@ class Spread:
         for key in ("mode", "deviation", "rate"):
             if not r.has(key):
                 raise r.error(key, "missing; a spread needs mode, deviation and rate (profile defaults to triangle)")
-        return cls(mode=r.get("mode"), deviation=r.get("deviation"), rate_hz=r.get("rate", high=frequency_hz / 100),
+        mode = {"center": "centre"}.get(r.get("mode"), r.get("mode"))
+        return cls(mode=mode, deviation=r.get("deviation"), rate_hz=r.get("rate", high=frequency_hz / 100),
                    profile=r.get("profile"))
 
     @property

@@ -44,10 +44,10 @@ def test_out_writes_all_artifacts(runner, tmp_path):
     names = sorted(p.name for p in out.iterdir())
     assert names == ["estimate-rail-io_3v3.png", "estimate-spectrum.png", "estimate-swept.csv", "estimate-swept.png",
                      "estimate.csv", "estimate.json", "estimate.md"]
-    swept = [line for line in (out / "estimate-swept.csv").read_text().splitlines() if not line.startswith("#")]
-    assert swept[0].startswith("frequency_hz,PK,QP,AV")
+    swept = (out / "estimate-swept.csv").read_text().splitlines()
+    assert swept[0].startswith("frequency_mhz,reading_pk_dbuv_m,reading_qp_dbuv_m,reading_av_dbuv_m")
     assert (out / "estimate-spectrum.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
-    assert CAUTION in (out / "estimate.md").read_text() and CAUTION in (out / "estimate.csv").read_text()
+    assert CAUTION in (out / "estimate.md").read_text() and CAUTION in (out / "estimate.json").read_text()
 
 
 def test_unwritable_out_leaves_nothing_and_exits_2(runner, tmp_path):
@@ -61,10 +61,10 @@ def test_unwritable_out_leaves_nothing_and_exits_2(runner, tmp_path):
 
 
 def test_internal_error_exits_1_without_traceback(runner, monkeypatch):
-    def boom(board):
+    def boom(board, budget):
         raise RuntimeError("kaput")
 
-    monkeypatch.setattr(cli, "run_estimate", boom)
+    monkeypatch.setattr(cli, "_estimate", boom)
     result = runner.invoke(app, ["estimate", str(DEMO)])
     assert result.exit_code == 1
     assert "internal error" in result.stderr and "Traceback" not in result.stderr

@@ -300,3 +300,19 @@ def test_measured_part_extends_as_inductor_above_and_capacitor_below():
     part = Measured(f, z)
     assert part.impedance([1e9])[0] == pytest.approx(0.1 + 50j)
     assert part.impedance([1e5])[0] == pytest.approx(0.1 - 100j)
+
+
+def test_peak_prominence_equals_scipy_find_peaks():
+    # Source: scipy.signal.find_peaks(prominence=...) as the independent reference for the peak search
+    from scipy.signal import find_peaks
+
+    from emispec.decoupling import _prominent_peaks
+
+    rng = np.random.default_rng(7)
+    f = np.geomspace(1e5, 2e9, 4000)
+    for _ in range(20):
+        parts = [Capacitor(10 ** rng.uniform(-10, -5), 10 ** rng.uniform(-3, -1), 10 ** rng.uniform(-10, -8.5))
+                 for _ in range(rng.integers(2, 6))] + [Plane(rng.uniform(10, 100) * 1e-4, 0.1e-3, 4.2)]
+        level = 20 * np.log10(np.abs(network_impedance(parts, f)))
+        for prominence in (1.0, 3.0, 10.0):
+            np.testing.assert_array_equal(_prominent_peaks(level, prominence), find_peaks(level, prominence=prominence)[0])

@@ -8,7 +8,7 @@ from conftest import REPO
 from emispec import report
 from emispec.board import load_board
 from emispec.pipeline import estimate
-from emispec.report import atomic_write, csv_text, markdown_text, result_dict
+from emispec.report import csv_text, markdown_text, result_dict
 
 
 @pytest.fixture(scope="module")
@@ -43,14 +43,20 @@ def test_nulls_are_null_not_nan(write_board):
                 if "spectral-null" in row["flags"]], "the default envelope has no nulls"
 
 
-def test_csv_and_markdown_carry_every_row_and_the_caution(demo):
+def test_csv_carries_every_row_for_spreadsheets_and_markdown_a_summary(demo):
     text = csv_text(demo)
-    data_lines = [line for line in text.splitlines() if not line.startswith("#")]
-    assert len(data_lines) == len(demo.rows) + 1
-    cells = [cell.lower() for line in data_lines[1:] for cell in line.split(",")]
-    assert "null" in cells and "nan" not in cells and "inf" not in cells
+    lines = text.splitlines()
+    assert not lines[0].startswith("#") and len(lines) == len(demo.rows) + 1  # header first, no comment lines
+    header = lines[0].split(",")
+    assert {"frequency_mhz", "reading_qp_dbuv_m", "limit_qp_dbuv_m", "margin_qp_db", "worst_margin_db",
+            "dominant_path", "line_dbuv", "decoupling_impedance_ohm"} <= set(header)
+    cells = [cell.lower() for line in lines[1:] for cell in line.split(",")]
+    assert "" in cells and not {"null", "nan", "inf", "none"} & set(cells)
+    frequency = header.index("frequency_mhz")
+    assert all(len(line.split(",")[frequency].split(".")[1]) == 3 for line in lines[1:])  # MHz to 1 kHz
     md = markdown_text(demo, count=10)
-    assert report.CAUTION in md and md.count("\n| ") >= 10
+    assert report.CAUTION in md and md.count("\n| ") == 11  # header and 10 rows
+    assert "| source | n | MHz | det | read | limit | margin | path | flags |" in md
 
 
 def test_markdown_escapes_user_text(demo):
@@ -59,27 +65,6 @@ def test_markdown_escapes_user_text(demo):
     evil = replace(demo, board=replace(demo.board, title="<b>x</b> | y"))
     md = markdown_text(evil)
     assert "<b>" not in md and "\\|" in md
-
-
-def test_atomic_write_keeps_the_old_file_when_the_rename_fails(tmp_path, monkeypatch):
-    target = tmp_path / "result.json"
-    target.write_text("old")
-
-    def refuse(src, dst):
-        raise OSError(28, "No space left on device")
-
-    monkeypatch.setattr(report.os, "replace", refuse)
-    with pytest.raises(OSError):
-        atomic_write(target, "new")
-    assert target.read_text() == "old"
-    assert [p.name for p in tmp_path.iterdir()] == ["result.json"]
-
-
-def test_atomic_write_replaces(tmp_path):
-    target = tmp_path / "a.txt"
-    atomic_write(target, "one")
-    atomic_write(target, "two")
-    assert target.read_text() == "two" and len(list(tmp_path.iterdir())) == 1
 
 
 def test_summary_worst_is_first_row(demo):
