@@ -365,7 +365,7 @@ WORKERS = typer.Option(None, "--workers", metavar="N", min=1, max=256,
 def vary_command(
     board: Path = BOARD,
     sets: list[str] = typer.Option(..., "--set", metavar="KEY=V1,V2,...",
-                                   help="Values of one key, e.g. 'clock[sdram_clk].rise_time=0.5 ns,1 ns'; repeat "
+                                   help="Values of one key, e.g. 'clock\\[sdram_clk].rise_time=0.5 ns,1 ns'; repeat "
                                         "--set for more keys."),
     zipped: bool = typer.Option(False, "--zip", help="Take the value lists side by side instead of crossing them."),
     out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR", help="Write variants.csv and variants.png."),
@@ -415,7 +415,7 @@ def _split_range(span: str) -> tuple[str, str]:
 def solve_command(
     board: Path = BOARD,
     key: str = typer.Option(..., "--value", metavar="KEY", help="Key path to solve for, e.g. "
-                                                                 "'clock[sdram_clk].rise_time'."),
+                                                                 "'clock\\[sdram_clk].rise_time'."),
     span: str = typer.Option(..., "--range", metavar="LOW..HIGH", help="Search range with units, e.g. "
                                                                        "'0.2 ns..5 ns'."),
     points: int = typer.Option(17, "--points", metavar="N", min=5, max=200, help="Scan points before refining."),

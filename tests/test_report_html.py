@@ -20,13 +20,13 @@ CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 needs_chromium = pytest.mark.skipif(CHROMIUM is None, reason="Chromium not found (Debian package chromium)")
 
 
-def render(path, tmp_path):
+def render(path, tmp_path, width=1400):
     """Load the page in headless Chromium; return the DOM it built and its console lines."""
     done = subprocess.run(
         [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
          "--disable-background-networking", "--disable-component-update", "--disable-sync",
-         f"--user-data-dir={tmp_path / 'profile'}", "--enable-logging=stderr", "--v=0", "--dump-dom",
-         path.as_uri()],
+         f"--user-data-dir={tmp_path / 'profile'}", "--enable-logging=stderr", "--v=0",
+         f"--window-size={width},2000", "--virtual-time-budget=3000", "--dump-dom", path.as_uri()],
         capture_output=True, text=True, timeout=120, check=False,
     )
     assert done.returncode == 0, done.stderr[-2000:]
@@ -78,3 +78,38 @@ def test_report_command_writes_one_file(runner, tmp_path):
     assert result.exit_code == 0, result.output
     assert sorted(p.name for p in out.parent.iterdir()) == ["report.html"]
     assert "Variants" in out.read_text()
+
+
+# Measures the laid-out page (this probe is added to a copy of the report for the test only; the report itself
+# has no script): the page must not scroll sideways, every table must fit or scroll inside its own box, and no
+# text cell may be cut off.
+LAYOUT_PROBE = """<script>
+window.addEventListener("load", () => {
+  const page = document.documentElement;
+  const problems = [];
+  if (page.scrollWidth > window.innerWidth + 1) problems.push("page " + page.scrollWidth + " > " + window.innerWidth);
+  for (const box of document.querySelectorAll(".wide")) {
+    if (box.getBoundingClientRect().right > window.innerWidth + 1) problems.push("table box past the edge");
+  }
+  for (const cell of document.querySelectorAll("td.text")) {
+    if (cell.scrollWidth > cell.clientWidth + 1) problems.push("cut: " + cell.textContent.slice(0, 40));
+  }
+  const out = document.createElement("pre");
+  out.id = "layout";
+  out.textContent = problems.length ? problems.join("\\n") : "fits";
+  document.body.appendChild(out);
+});
+</script>"""
+
+
+@needs_chromium
+@pytest.mark.parametrize("width", [900, 1400])
+def test_report_layout_at_900_and_1400_px(evil_report, tmp_path, width):
+    page, _ = evil_report
+    probe = tmp_path / "probe.html"
+    probe.write_text(page.read_text().replace("</body>", LAYOUT_PROBE + "</body>"), encoding="utf-8")
+    dom, console = render(probe, tmp_path, width)
+    assert console == [], console
+    result = re.search(r'<pre id="layout">(.*?)</pre>', dom, re.S)
+    assert result is not None and result.group(1) == "fits", result and result.group(1)
+    assert "1 current source," in dom and "_QP" not in dom and "worst_margin_db" not in dom
