@@ -17,6 +17,7 @@ only the changed entries are checked again.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path as FilePath
 
@@ -31,11 +32,14 @@ from .units import QuantityError, parse_quantity
 __all__ = ["BoardError", "Board", "Clock", "Current", "TOP_KEYS", "load_board", "read_board_data",
            "board_from_mapping", "EntryMemo"]
 
+#: What an entry's name may be: it stands in key paths (clock[NAME].rise_time) and file names (rail-NAME.png).
+NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_-]{0,63}", re.ASCII)
+
 TOP_KEYS = (
     Key("title", "text"),
     Key("guard_band", "decibel", default=0.0, low=0.0, high=60.0, low_open=False),
     Key("limit", "any"),
-    Key("max_frequency", "frequency", low=0.0),
+    Key("max_frequency", "frequency", low=0.0, high=1e12),
     Key("harmonics", "choice", default="envelope", choices=MODES),
     Key("combine", "choice", default="power", choices=COMBINES),
     Key("highest_internal_frequency", "any"),
@@ -98,6 +102,9 @@ def _named_tables(file: str, data: dict, kind: str) -> list[tuple[str, dict]]:
         name = table.get("name")
         if not isinstance(name, str) or not name.strip():
             raise BoardError(file, f"{kind}[{index}].name", "missing; every entry needs a unique name", name)
+        if not NAME.fullmatch(name):
+            raise BoardError(file, f"{kind}[{index}].name", "a name may use letters, digits, '_' and '-' (up to 64; "
+                             "it becomes part of key paths and file names)", name)
         if name in seen:
             raise BoardError(file, f"{kind}[{name}].name", f"duplicate name; each {kind} name must be unique", name)
         seen.add(name)
@@ -229,13 +236,20 @@ def load_board(path: str | FilePath) -> Board:
     return board_from_mapping(data, file, base_dir, sha256)
 
 
-def _refuse_non_finite(file: str, node: object, key: str) -> None:
+#: How deep tables and arrays may nest in a board file (the deepest real one is 4).
+MAX_DEPTH = 16
+
+
+def _refuse_non_finite(file: str, node: object, key: str, depth: int = 0) -> None:
+    if depth > MAX_DEPTH:
+        raise BoardError(file, key, f"nested more than {MAX_DEPTH} levels deep")
     if isinstance(node, float) and not math.isfinite(node):
         raise BoardError(file, key or "value", "NaN and infinity are not allowed", node)
     if isinstance(node, dict):
         for k, v in node.items():
-            _refuse_non_finite(file, v, f"{key}.{k}" if key else k)
+            _refuse_non_finite(file, v, f"{key}.{k}" if key else k, depth + 1)
     elif isinstance(node, list):
         for i, v in enumerate(node):
-            label = v.get("name") if isinstance(v, dict) and isinstance(v.get("name"), str) else i
-            _refuse_non_finite(file, v, f"{key}[{label}]")
+            name = v.get("name") if isinstance(v, dict) else None
+            label = name if isinstance(name, str) and NAME.fullmatch(name) else i
+            _refuse_non_finite(file, v, f"{key}[{label}]", depth + 1)

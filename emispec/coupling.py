@@ -198,7 +198,7 @@ def _reflection(r: TableReader):
     if value not in (True, False, "auto") or isinstance(value, (int, float)) and not isinstance(value, bool):
         raise r.error("ground_reflection", "expected true, false or 'auto' (+6 dB up to 1 GHz, none above)", value)
     return value
-_TERMINATION = Key("termination", "resistance", default=COMMON_MODE_OHM, low=0.0)
+_TERMINATION = Key("termination", "resistance", default=COMMON_MODE_OHM, low=0.0, high=1e6)
 
 
 def _distance(r: TableReader, limit) -> float | None:
@@ -215,7 +215,7 @@ class LoopPath:
 
     KIND: ClassVar[str] = "loop"
     SERVES: ClassVar[tuple[str, ...]] = ("radiated",)
-    KEYS: ClassVar[tuple[Key, ...]] = (_NAME, _KIND, Key("area", "area", required=True, low=0.0), _DISTANCE,
+    KEYS: ClassVar[tuple[Key, ...]] = (_NAME, _KIND, Key("area", "area", required=True, low=0.0, high=1.0), _DISTANCE,
                                        _REFLECTION)
 
     name: str
@@ -253,7 +253,7 @@ class CablePath:
     KIND: ClassVar[str] = "cable"
     SERVES: ClassVar[tuple[str, ...]] = ("radiated",)
     KEYS: ClassVar[tuple[Key, ...]] = (
-        _NAME, _KIND, Key("length", "length", required=True, low=0.0),
+        _NAME, _KIND, Key("length", "length", required=True, low=0.0, high=1e3),
         Key("drive", "choice", default="ratio", choices=("ratio", "escape")),
         Key("ratio", "gain"), _DISTANCE, _REFLECTION, _TERMINATION,
     )
@@ -316,6 +316,8 @@ def _gain_table(r: TableReader, name: str) -> Trace:
             gains.append(parse_quantity(point[1], "decibel"))
         except QuantityError as err:
             raise r.error(f"{name}[{k}]", str(err), point) from None
+        if not -300 <= gains[-1] <= 300:
+            raise r.error(f"{name}[{k}]", "out of range; allowed: a gain from -300 dB to 300 dB", point)
     freqs_a = np.array(freqs)
     if np.any(freqs_a <= 0) or np.any(np.diff(freqs_a) <= 0):
         raise r.error(name, "frequencies must be > 0 Hz and strictly ascending")

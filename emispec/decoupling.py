@@ -106,10 +106,10 @@ class Capacitor:
     """
 
     KEYS: ClassVar[tuple[Key, ...]] = (
-        Key("kind", "text"), Key("capacitance", "capacitance", required=True, low=0.0),
-        Key("esr", "resistance", default=0.0, **_ZERO_OR_MORE),
-        Key("esl", "inductance", default=0.0, **_ZERO_OR_MORE),
-        Key("mounting_inductance", "inductance", default=0.0, **_ZERO_OR_MORE),
+        Key("kind", "text"), Key("capacitance", "capacitance", required=True, low=0.0, high=1.0),
+        Key("esr", "resistance", default=0.0, high=1e3, **_ZERO_OR_MORE),
+        Key("esl", "inductance", default=0.0, high=1e-6, **_ZERO_OR_MORE),
+        Key("mounting_inductance", "inductance", default=0.0, high=1e-6, **_ZERO_OR_MORE),
         Key("count", "count", default=1, low=1, high=10000),
         Key("distance", "length", low=0.0, high=1.0),
         Key("via_diameter", "length", default=VIA_DIAMETER_M, low=0.0, high=0.01),
@@ -172,8 +172,8 @@ class Plane:
     """
 
     KEYS: ClassVar[tuple[Key, ...]] = (
-        Key("kind", "text"), Key("area", "area", required=True, low=0.0),
-        Key("separation", "length", required=True, low=0.0),
+        Key("kind", "text"), Key("area", "area", required=True, low=0.0, high=1.0),
+        Key("separation", "length", required=True, low=0.0, high=0.01),
         Key("permittivity", "number", required=True, low=1.0, high=100.0, what="a relative permittivity"),
         Key("loss_tangent", "number", default=0.0, low=0.0, high=0.2, what="a loss tangent"),
     )
@@ -207,8 +207,8 @@ class Plane:
 class SeriesRL:
     """A series resistance and inductance: a regulator output, a supply trace, a bead's simple model."""
 
-    KEYS: ClassVar[tuple[Key, ...]] = (Key("resistance", "resistance", default=0.0, **_ZERO_OR_MORE),
-                                       Key("inductance", "inductance", default=0.0, **_ZERO_OR_MORE))
+    KEYS: ClassVar[tuple[Key, ...]] = (Key("resistance", "resistance", default=0.0, high=1e3, **_ZERO_OR_MORE),
+                                       Key("inductance", "inductance", default=0.0, high=1e-3, **_ZERO_OR_MORE))
 
     resistance_ohm: float = 0.0
     inductance_h: float = 0.0
@@ -359,10 +359,10 @@ class Rail:
     BEAD_KEYS: ClassVar[tuple[Key, ...]] = SeriesRL.KEYS + (Key("table", "text"),)
     SUPPLY_KEYS: ClassVar[tuple[Key, ...]] = SeriesRL.KEYS + (Key("bead", "table", schema=BEAD_KEYS),)
     KEYS: ClassVar[tuple[Key, ...]] = (
-        Key("name", "text", required=True), Key("voltage", "voltage", required=True, low=0.0),
-        Key("supply_path", "table", schema=SUPPLY_KEYS), Key("target_impedance", "resistance", low=0.0),
+        Key("name", "text", required=True), Key("voltage", "voltage", required=True, low=0.0, high=1e4),
+        Key("supply_path", "table", schema=SUPPLY_KEYS), Key("target_impedance", "resistance", low=0.0, high=1e3),
         Key("ripple", "ratio", required=True, low=0.0, high=1.0),
-        Key("transient_current", "current", required=True, low=0.0),
+        Key("transient_current", "current", required=True, low=0.0, high=1e4),
         Key("target_up_to", "frequency", low=0.0, high=100e9),
         Key("inductance_tolerance", "ratio", default=0.2, low=0.0, high=0.9, low_open=False),
         Key("capacitance_tolerance", "ratio", default=0.2, low=0.0, high=0.9, low_open=False),

@@ -13,6 +13,7 @@ CISPR 32:2015, Annex A; 47 CFR 15.107, 15.109, 15.35(b), 15.33(b).
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
@@ -46,7 +47,7 @@ class LimitError(InputError):
 
     def __init__(self, file: str, key: str, problem: str):
         self.file, self.key, self.problem = file, key, problem
-        super().__init__(f"{file}: {key}: {problem}")
+        super().__init__(f"{file}: {key}: {problem}".replace("\n", " "))
 
 
 def limit_line(detector: str, frequency_hz, level_db, unit: str = "dB", origin: str = "") -> Trace:
@@ -150,9 +151,16 @@ def _points(file: str, key: str, value, base_dir: Path | None) -> tuple[np.ndarr
     return _checked(file, key, np.array(freqs), np.array(levels))
 
 
+#: Plausible limit levels [dB of the limit's unit]: emission limits lie far inside this range.
+LEVEL_RANGE_DB = (-100.0, 300.0)
+
+
 def _checked(file, key, freqs, levels):
-    if np.any(freqs <= 0):
-        raise LimitError(file, key, "frequencies must be > 0 Hz")
+    if np.any(freqs <= 0) or np.any(freqs > 1e12):
+        raise LimitError(file, key, "frequencies must be > 0 Hz and <= 1e+12 Hz")
+    lo, hi = LEVEL_RANGE_DB
+    if np.any(levels < lo) or np.any(levels > hi):
+        raise LimitError(file, key, f"levels must be from {lo:g} dB to {hi:g} dB")
     if np.any(np.diff(freqs) < 0):
         raise LimitError(file, key, "frequencies must be in ascending order (a step repeats one frequency)")
     if np.any((np.diff(freqs) == 0)[1:] & (np.diff(freqs) == 0)[:-1]):
@@ -247,10 +255,15 @@ def load_limit(spec: str, base_dir: Path | None = None) -> Limit:
         path = Path(spec)
         if base_dir is not None and not path.is_absolute():
             path = base_dir / path
-        if not path.is_file():
+        try:
+            os.stat(path)
+        except FileNotFoundError:
+            what = "a symlink to a missing file" if os.path.islink(path) else "no such file"
             raise LimitError(
-                str(path), "limit", f"no such file and no bundled limit {spec!r}; bundled: {', '.join(bundled)}"
-            )
+                str(path), "limit", f"{what} and no bundled limit {spec!r}; bundled: {', '.join(bundled)}"
+            ) from None
+        except OSError as err:  # a symlink loop, a name too long, no permission
+            raise LimitError(str(path), "limit", f"cannot read the limit ({err.strerror or err})") from None
     file = str(path)
     if path.suffix.lower() == ".csv":
         f, y, meta = _read_csv_points(path)

@@ -43,7 +43,7 @@ from .decoupling import ABOVE_TARGET, DECOUPLING_INSUFFICIENT, NEAR_ANTI_RESONAN
 from .flags import declare
 from .limits import upper_frequency_hz
 from .readings import PASSES, combine, read_rows, row_max
-from .receiver import BANDS, REACH_RBW, resolution_bandwidth_hz, sweep
+from .receiver import BANDS, REACH_RBW, repeats_fast, band_index, resolution_bandwidth_hz, sweep
 from .rows import Rows, Verdict, Worst, assemble_rows
 from .sources import Source
 from .spread import harmonic_lines, occupied_band_hz
@@ -146,8 +146,8 @@ def analysis_span_hz(board: Board) -> tuple[float, float]:
     return lo, hi
 
 
-def _harmonic_numbers(source: Source, lo: float, hi: float) -> np.ndarray:
-    """Harmonics whose occupied band touches [lo, hi]."""
+def _harmonic_range(source: Source, lo: float, hi: float) -> tuple[int, int]:
+    """First and last harmonic whose occupied band touches [lo, hi] (last < first: none), without listing them."""
     f0 = source.frequency_hz
     low_factor = high_factor = 1.0
     if source.spread is not None:
@@ -155,6 +155,12 @@ def _harmonic_numbers(source: Source, lo: float, hi: float) -> np.ndarray:
         high_factor = source.spread.centre_factor + source.spread.deviation / 2
     first = max(1, int(np.ceil(lo / (f0 * high_factor) * (1 - 1e-12))))
     last = int(np.floor(hi / (f0 * low_factor) * (1 + 1e-12)))
+    return first, last
+
+
+def _harmonic_numbers(source: Source, lo: float, hi: float) -> np.ndarray:
+    """Harmonics whose occupied band touches [lo, hi]."""
+    first, last = _harmonic_range(source, lo, hi)
     return np.arange(first, last + 1, dtype=np.int64)
 
 
@@ -444,22 +450,31 @@ def work(board: Board) -> list[dict]:
     lo, hi = analysis_span_hz(board)
     out = []
     for source in board.sources:
-        n = _harmonic_numbers(source, lo, hi)
-        lines = cells = float(n.size)
-        if source.spread is not None and n.size:
+        first, last = _harmonic_range(source, lo, hi)
+        count = max(last - first + 1, 0)
+        lines, cells, steps = float(count), 32.0 * count, 0.0
+        if source.spread is not None and 0 < count <= BUDGET["harmonics"] * 100:
+            n = np.arange(first, last + 1, dtype=np.int64)
             beta = source.spread.beta(source.frequency_hz, n)
             per_harmonic = 2 * beta + 8 * np.cbrt(beta) + 32
-            rbw = resolution_bandwidth_hz(n * source.frequency_hz)
-            points = n * source.frequency_hz * source.spread.deviation / (rbw / 2) + 3
+            f = n * source.frequency_hz
+            rbw = resolution_bandwidth_hz(f)
+            points = f * source.spread.deviation / (rbw / 2) + 3
             reach = np.minimum(per_harmonic, 2 * REACH_RBW * rbw / source.spread.rate_hz)
-            lines, cells = float(per_harmonic.sum()), float(np.sum(points * reach))
-        out.append({"source": source, "key": f"{source.section}[{source.name}]", "harmonics": int(n.size),
-                    "lines": lines, "cells": cells, "span_hz": (lo, hi)})
+            fft = np.maximum(32, 4 * reach)  # each tuning point takes an FFT about 4x the lines it reaches
+            lines, cells = float(per_harmonic.sum()), float(np.sum(points * fft))
+            # a modulation too slow for the detectors' closed forms is stepped in time, sample by sample, for
+            # about 25 periods per group of tuning points and 6 reading passes
+            slow = np.array([not repeats_fast(1 / source.spread.rate_hz, BANDS[b]) for b in band_index(f)])
+            steps = float(np.sum(fft[slow & (f <= 1e9)])) * 25 * 6
+        out.append({"source": source, "key": f"{source.section}[{source.name}]", "harmonics": count,
+                    "lines": lines, "cells": cells, "steps": steps, "span_hz": (lo, hi)})
     return out
 
 
-#: What one estimate may cost before it is refused (raise with ``budget``): a few seconds and well under 1 GB.
-BUDGET = {"harmonics": 3e4, "lines": 4e6, "cells": 1e7}
+#: What one estimate may cost before it is refused (raise with ``budget``): about two seconds and well under
+#: 1 GB on a 2-core machine.  ``steps``: detector samples stepped in Python (slow modulation only).
+BUDGET = {"harmonics": 3e4, "lines": 4e6, "cells": 1e7, "steps": 6e5}
 
 
 def check_budget(board: Board, budget: float = 1.0) -> None:
@@ -487,10 +502,34 @@ def check_budget(board: Board, budget: float = 1.0) -> None:
                     + (f"; did you mean {source.frequency_hz:g} MHz?" if source.frequency_hz < 1e3 else ""))
         else:
             key, value = f"{worst['key']}.spread.rate", format_quantity(source.spread.rate_hz, "Hz")
-            hint = (f"a spread at {value} gives {worst['lines']:.3g} spectral lines up to {format_quantity(hi, 'Hz')}"
+            words = {"lines": "spectral lines", "cells": "receiver cells", "steps": "detector steps"}[what]
+            hint = (f"a spread at {value} gives {worst[what]:.3g} {words} up to {format_quantity(hi, 'Hz')}"
                     + (f"; did you mean {source.spread.rate_hz:g} kHz?" if source.spread.rate_hz < 1e3 else ""))
         raise BoardError(board.file, key, f"{hint} (the estimate's budget is {allowed:.3g} {what}; raise it with "
                          f"--budget if you mean it)")
+
+
+def _check_span(board: Board, lo: float, hi: float) -> None:
+    """Refuse an estimate with nothing to read: a span cut below its start, or no harmonic of any source in it."""
+    from .units import format_quantity
+
+    if hi < lo:
+        raise BoardError(board.file, "max_frequency", f"{format_quantity(hi, 'Hz')} is below the limit's span, which "
+                         f"starts at {format_quantity(lo, 'Hz')}", board.max_frequency_hz)
+    if not any(np.subtract(*_harmonic_range(s, lo, hi)[::-1]) >= 0 for s in board.sources):
+        sources = ", ".join(f"{s.name} {format_quantity(s.frequency_hz, 'Hz')}" for s in board.sources)
+        raise BoardError(board.file, "limit", f"nothing to estimate: no source has a harmonic between "
+                         f"{format_quantity(lo, 'Hz')} and {format_quantity(hi, 'Hz')} (the analysed span; sources: "
+                         f"{sources})")
+
+
+def _check_finite(board: Board, columns: list[dict]) -> None:
+    """A value that overflowed is an input problem, not missing data: name the source it came from."""
+    for source, c in zip(board.sources, columns):
+        values = [c["line_dbuv"], c["line_dbua"], *c["readings"].values()]
+        if any(np.isinf(v).any() for v in values):
+            raise BoardError(board.file, f"{source.section}[{source.name}]", "its levels overflow; check its swing, "
+                             "load, current and the gains of its paths")
 
 
 def estimate(board: Board, reuse: Reuse | None = None, progress=None, budget: float = 1.0) -> Estimate:
@@ -511,8 +550,9 @@ def estimate(board: Board, reuse: Reuse | None = None, progress=None, budget: fl
     -------
     Estimate
     """
-    check_budget(board, budget)
     lo, hi = analysis_span_hz(board)
+    _check_span(board, lo, hi)
+    check_budget(board, budget)
     detectors = board.limit.detectors
     total = 2 * len(board.sources) + PASSES
     done = [0]
@@ -542,6 +582,7 @@ def estimate(board: Board, reuse: Reuse | None = None, progress=None, budget: fl
         limit = {d: -row_max(-levels[d], rows.owner, n) for d in detectors}
         columns.append(_source_columns(board, parts, k, rows, own, best, limit, overlaps[k], (lo, hi)))
         step()
+    _check_finite(board, columns)
     return Estimate(board, (lo, hi), assemble_rows(columns, detectors, board.guard_band_db), tuple(lines))
 
 

@@ -56,7 +56,7 @@ class FileError(InputError):
 
     def __init__(self, file: str, where: str, problem: str):
         self.file, self.where, self.problem = file, where, problem
-        super().__init__(f"{file}: {where}: {problem}")
+        super().__init__(f"{file}: {where}: {problem}".replace("\n", " "))
 
 
 class TouchstoneError(ValueError):
@@ -127,28 +127,35 @@ def read_toml(path: str | Path, what: str = "file") -> tuple[dict, TextFile]:
 def read_two_column_csv(path: str | Path, what: str = "limit") -> tuple[np.ndarray, np.ndarray, dict]:
     """Rows ``frequency,level`` (quantities or plain numbers); ``# key: value`` comment lines carry metadata.
 
-    A first row whose cells are not quantities is a header.  Returns the
-    frequencies [Hz], the levels [dB] and the metadata.
+    The first row that is not a comment is a header when every cell starts
+    with a letter (``frequency,level``); any other row that is not two
+    numbers is an error naming its line, so a typo in the first data row
+    (``3O MHz``) is never taken for a header.  Returns the frequencies [Hz],
+    the levels [dB] and the metadata.
     """
     source = read_text(path, what)
     file = source.file
     meta, freqs, levels = {}, [], []
-    rows = [line for line in source.text.splitlines() if line.strip()]
-    for lineno, line in enumerate(rows, start=1):
+    first = True
+    for lineno, line in enumerate(source.text.splitlines(), start=1):
+        if not line.strip():
+            continue
         if line.lstrip().startswith("#"):
             name, sep, val = line.lstrip("# ").partition(":")
             if sep:
                 meta[name.strip().lower()] = val.strip()
             continue
-        cells = next(csv.reader([line]))
+        cells = [cell.strip() for cell in next(csv.reader([line]))]
+        if first and cells and all(cell[:1].isalpha() for cell in cells):
+            first = False  # a header row
+            continue
+        first = False
         if len(cells) != 2:
             raise FileError(file, f"line {lineno}", "expected two columns: frequency, level in dB")
         try:
-            freqs.append(parse_quantity(cells[0].strip(), "frequency"))
-            levels.append(parse_quantity(cells[1].strip(), "decibel"))
+            freqs.append(parse_quantity(cells[0], "frequency"))
+            levels.append(parse_quantity(cells[1], "decibel"))
         except QuantityError as err:
-            if not freqs and not levels:  # a header row
-                continue
             raise FileError(file, f"line {lineno}", str(err)) from None
     if len(freqs) < 2:
         raise FileError(file, what, "needs at least two (frequency, level) rows")
@@ -181,19 +188,32 @@ def read_touchstone(path: Path) -> ImpedanceData:
             "reading Touchstone files needs scikit-rf; install it with: pip install 'emispec[touchstone]'"
         ) from None
     try:
-        network = skrf.Network(str(path))
+        text = read_text(path, "Touchstone file").text
+    except FileError as err:
+        raise TouchstoneError(f"{path}: {err.problem}") from None
+    handle = io.StringIO(text)
+    handle.name = Path(path).name  # scikit-rf takes the number of ports from the extension
+    try:
+        network = skrf.Network(handle)
     except Exception as err:  # noqa: BLE001 - skrf raises many kinds
         raise TouchstoneError(f"cannot read {path} as Touchstone ({err})") from None
     z0 = network.z0[:, 0]
-    if network.nports == 1:
-        s11 = network.s[:, 0, 0]
-        z = z0 * (1 + s11) / (1 - s11)
-    elif network.nports == 2:
-        s21 = network.s[:, 1, 0]
-        z = 0.5 * z0 * s21 / (1 - s21)
-    else:
-        raise TouchstoneError(f"{path}: expected a 1-port or a 2-port (shunt-through) file")
-    return ImpedanceData(np.asarray(network.f, dtype=float), np.asarray(z, dtype=complex), str(path))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if network.nports == 1:
+            s11 = network.s[:, 0, 0]
+            z = z0 * (1 + s11) / (1 - s11)
+        elif network.nports == 2:
+            s21 = network.s[:, 1, 0]
+            z = 0.5 * z0 * s21 / (1 - s21)
+        else:
+            raise TouchstoneError(f"{path}: expected a 1-port or a 2-port (shunt-through) file")
+    f = np.asarray(network.f, dtype=float)
+    bad = ~np.isfinite(z) | (np.abs(z) < 1e-9) | (np.abs(z) > 1e9)
+    if bad.any():
+        k = int(np.flatnonzero(bad)[0])
+        raise TouchstoneError(f"{path}: at {f[k]:g} Hz the part is an ideal open or short (|Z| = {abs(z[k]):.3g} "
+                              "ohm); a decoupling part lies between 1 nohm and 1 Gohm")
+    return ImpedanceData(f, np.asarray(z, dtype=complex), str(path))
 
 
 def read_impedance_table(path: Path) -> ImpedanceData:
@@ -205,26 +225,43 @@ def read_impedance_table(path: Path) -> ImpedanceData:
         text = read_text(path, "table").text
     except FileError as err:
         raise TouchstoneError(f"{path}: {err.problem}") from None
-    rows = list(csv.DictReader(io.StringIO("\n".join(
-        line for line in text.splitlines() if line.strip() and not line.startswith("#")))))
-    if not rows:
+    lines = [(k, line) for k, line in enumerate(text.splitlines(), start=1)
+             if line.strip() and not line.startswith("#")]
+    if len(lines) < 2:
         raise TouchstoneError(f"{path}: no data rows")
-    columns = set(rows[0])
-    try:
-        f = np.array([float(r["frequency_hz"]) for r in rows])
-        if {"magnitude_ohm", "phase_deg"} <= columns:
-            z = np.array([float(r["magnitude_ohm"]) * np.exp(1j * np.radians(float(r["phase_deg"]))) for r in rows])
-        elif {"resistance_ohm", "reactance_ohm"} <= columns:
-            z = np.array([float(r["resistance_ohm"]) + 1j * float(r["reactance_ohm"]) for r in rows])
-        else:
-            raise KeyError("columns")
-    except (KeyError, ValueError):
+    header = [cell.strip() for cell in next(csv.reader([lines[0][1]]))]
+    if {"magnitude_ohm", "phase_deg"} <= set(header):
+        pair = ("magnitude_ohm", "phase_deg")
+    elif {"resistance_ohm", "reactance_ohm"} <= set(header):
+        pair = ("resistance_ohm", "reactance_ohm")
+    else:
+        pair = None
+    if "frequency_hz" not in header or pair is None:
         raise TouchstoneError(
             f"{path}: expected columns frequency_hz with magnitude_ohm and phase_deg, or with resistance_ohm and "
             "reactance_ohm"
-        ) from None
-    if np.any(f <= 0) or np.any(np.diff(f) <= 0) or np.any(np.abs(z) == 0) or not np.all(np.isfinite(z)):
-        raise TouchstoneError(f"{path}: frequencies must be > 0 and ascending, impedances finite and non-zero")
+        )
+    where = [header.index(name) for name in ("frequency_hz", *pair)]
+    values = np.empty((len(lines) - 1, 3))
+    for row, (lineno, line) in enumerate(lines[1:]):
+        cells = next(csv.reader([line]))
+        if len(cells) != len(header):
+            raise TouchstoneError(f"{path}: line {lineno}: expected {len(header)} cells, found {len(cells)}")
+        try:
+            values[row] = [float(cells[k]) for k in where]
+        except ValueError:
+            raise TouchstoneError(f"{path}: line {lineno}: expected numbers in {', '.join(header)}") from None
+        if not np.all(np.isfinite(values[row])):
+            raise TouchstoneError(f"{path}: line {lineno}: NaN and infinity are not allowed")
+    f, a, b = values.T
+    if pair[0] == "magnitude_ohm":
+        if np.any(a <= 0) or np.any(a > 1e9):
+            raise TouchstoneError(f"{path}: magnitude_ohm must be > 0 and <= 1e9 ohm")
+        z = a * np.exp(1j * np.radians(b))
+    else:
+        z = a + 1j * b
+    if np.any(f <= 0) or np.any(np.diff(f) <= 0) or np.any(np.abs(z) < 1e-9) or np.any(np.abs(z) > 1e9):
+        raise TouchstoneError(f"{path}: frequencies must be > 0 and ascending, |Z| from 1 nohm to 1 Gohm")
     return ImpedanceData(f, z, str(path))
 
 

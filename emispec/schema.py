@@ -17,6 +17,7 @@ the command line turns it into a one-line message and exit status 2.
 from __future__ import annotations
 
 import difflib
+import unicodedata
 from dataclasses import dataclass, replace
 
 from .errors import InputError
@@ -34,7 +35,12 @@ class BoardError(InputError):
     def __init__(self, file: str, key: str, problem: str, value: object = None):
         self.file, self.key, self.value, self.problem = file, key, value, problem
         shown = "" if value is None else f" = {_short(value)}"
-        super().__init__(f"{file}: {key}{shown}: {problem}")
+        super().__init__(one_line(f"{file}: {key}{shown}: {problem}"))
+
+
+def one_line(text: str) -> str:
+    """Control characters (a newline in a name the user wrote) shown escaped, so a message stays one line."""
+    return "".join(c if c.isprintable() or c == " " else repr(c)[1:-1] for c in text)
 
 
 def _short(value: object) -> str:
@@ -168,6 +174,10 @@ class TableReader:
         if kind == "text":
             if not isinstance(raw, str) or not raw.strip():
                 raise self.error(name, "expected a non-empty string", raw)
+            if any(unicodedata.category(c) == "Cc" for c in raw):
+                raise self.error(name, "control characters (a newline, a tab) are not allowed in text", raw)
+            if len(raw) > 200:
+                raise self.error(name, f"{len(raw)} characters; allowed: up to 200", raw)
             return raw
         if kind == "bool":
             if not isinstance(raw, bool):
@@ -210,6 +220,6 @@ class TableReader:
     def _gain(self, key: Key, raw) -> float:
         """A current ratio written in dB (``"-40 dB"``, at most 0 dB) or as a fraction from 0 to 1."""
         if isinstance(raw, str) and raw.strip().endswith("dB"):
-            level = self._quantity(Key(key.name, "decibel", high=0.0), raw, "decibel")
+            level = self._quantity(Key(key.name, "decibel", low=-300.0, low_open=False, high=0.0), raw, "decibel")
             return float(from_db(level))
-        return self._quantity(Key(key.name, "ratio", low=0.0, high=1.0), raw, "ratio")
+        return self._quantity(Key(key.name, "ratio", low=1e-15, low_open=False, high=1.0), raw, "ratio")

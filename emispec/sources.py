@@ -133,12 +133,12 @@ class Clock:
     section: ClassVar[str] = "clock"
     KEYS: ClassVar[tuple[Key, ...]] = (
         _NAME, replace(_FREQUENCY, required=True), _DUTY,
-        Key("rise_time", "time", required=True, low=0.0),
-        Key("fall_time", "time", low=0.0),
+        Key("rise_time", "time", required=True, low=0.0, high=1.0),
+        Key("fall_time", "time", low=0.0, high=1.0),
         Key("edge", "choice", default="10-90", choices=tuple(EDGE_FRACTION)),
-        Key("swing", "voltage", required=True, low=0.0),
-        Key("load", "table", schema=(Key("resistance", "resistance", low=0.0),
-                                     Key("capacitance", "capacitance", low=0.0))),
+        Key("swing", "voltage", required=True, low=1e-6, low_open=False, high=1e4),
+        Key("load", "table", schema=(Key("resistance", "resistance", low=0.0, high=1e9),
+                                     Key("capacitance", "capacitance", low=0.0, high=1.0))),
         _PATHS, _RAIL, _SPREAD, _REFERENCE, _HARMONICS, _COMBINE,
         Key("edge_shape", "choice", default="linear", choices=EDGE_SHAPES),
     )
@@ -260,7 +260,7 @@ class Current:
     section: ClassVar[str] = "current"
     KEYS: ClassVar[tuple[Key, ...]] = (
         _NAME, Key("clock", "text"), _FREQUENCY, _DUTY, _SPREAD, _REFERENCE,
-        Key("peak", "current", required=True, low=0.0),
+        Key("peak", "current", required=True, low=1e-9, low_open=False, high=1e4),
         Key("width", "time", required=True, low=0.0),
         Key("per", "choice", default="cycle", choices=("cycle", "edge")),
         _RAIL, _PATHS, _HARMONICS, _COMBINE,

@@ -42,7 +42,6 @@ _PREFIXES = {
     "\u00b5": 1e-6,  # micro sign
     "\u03bc": 1e-6,  # Greek mu
     "m": 1e-3,
-    "c": 1e-2,  # for lengths and areas (cm, cm2)
     "": 1.0,
     "k": 1e3,
     "M": 1e6,
@@ -65,8 +64,12 @@ DIMENSIONS: dict[str, tuple[tuple[str, ...], str]] = {
     "decibel": (("dB",), "dB"),
 }
 
-_NUMBER = r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?"
-_QUANTITY = re.compile(rf"^\s*({_NUMBER})\s*(\S*)\s*$")
+#: Prefixes only some dimensions take: centi for lengths and areas (cm, cm2), as the trade writes them.
+_OWN_PREFIXES = {"length": {"c": 1e-2}, "area": {"c": 1e-2}}
+
+# ASCII digits only: a full-width or other Unicode digit is not a number here
+_NUMBER = r"[-+]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]+)?"
+_QUANTITY = re.compile(rf"^\s*({_NUMBER})\s*(\S*)\s*$", re.ASCII)
 
 
 def _unit_scale(unit: str, dimension: str) -> float | None:
@@ -78,11 +81,12 @@ def _unit_scale(unit: str, dimension: str) -> float | None:
         return 1.0 if unit in ("dB", "") else None
     if unit == "" or unit in spellings:  # plain SI number; "m" is the metre, not milli
         return 1.0
+    prefixes = {**_PREFIXES, **_OWN_PREFIXES.get(dimension, {})}
     for spelling in spellings:
         if unit.endswith(spelling):
             prefix = unit[: -len(spelling)]
-            if prefix in _PREFIXES:
-                scale = _PREFIXES[prefix]
+            if prefix in prefixes:
+                scale = prefixes[prefix]
                 # an area prefix applies to the length before squaring (cm2)
                 return scale**2 if dimension == "area" else scale
     return None
@@ -117,7 +121,10 @@ def parse_quantity(value: object, dimension: str) -> float:
     if isinstance(value, bool):
         raise QuantityError(f"expected a quantity in {expected}, got a boolean")
     if isinstance(value, (int, float)):
-        number, unit = float(value), ""
+        try:
+            number, unit = float(value), ""
+        except OverflowError:
+            raise QuantityError(f"{str(value)[:12]}... ({len(str(value))} digits) is too large") from None
     elif isinstance(value, str):
         match = _QUANTITY.match(value)
         if match is None:
