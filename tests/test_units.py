@@ -57,3 +57,12 @@ def test_decibel_conversions():
 def test_format_quantity():
     assert format_quantity(48e6, "Hz") == "48 MHz"
     assert format_quantity(1.2e-9, "s") == "1.2 ns"
+
+
+def test_physical_constants_equal_scipy():
+    # Source: scipy.constants (CODATA 2022), the independent reference for the values emispec keeps itself
+    from scipy import constants
+
+    from emispec.constants import C, EPSILON_0, MU_0
+
+    assert C == constants.c and MU_0 == constants.mu_0 and EPSILON_0 == constants.epsilon_0
