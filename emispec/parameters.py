@@ -236,9 +236,11 @@ class Template:
 
     def parameters(self) -> dict[str, Parameter]:
         """Every numeric key present in the board file, with its value in SI."""
-        out: dict[str, Parameter] = {}
-        _walk(self.data, TOP_KEYS, "", out)
-        return out
+        if self.__dict__.get("_parameters") is None:  # the data never changes: walk it once
+            out: dict[str, Parameter] = {}
+            _walk(self.data, TOP_KEYS, "", out)
+            self._parameters = out
+        return dict(self._parameters)
 
     def parameter(self, key: str) -> Parameter:
         """The numeric parameter at ``key``, present in the file or not (then its value is None)."""

@@ -59,6 +59,10 @@ __all__ = [
     "source_gains",
     "path_readings",
     "estimate",
+    "Stage",
+    "read_board",
+    "tuning_of",
+    "row_limits",
     "swept_spectrum",
     "envelope_traces",
     "rail_view",
@@ -253,6 +257,8 @@ class _SourcePart:
     owner: np.ndarray
     unspread: SourceLines | None
     rbw: np.ndarray
+    unit: SourceLines  # the lines of unit harmonics (RMS 1, the harmonics' phases), before any path
+    line_owner: np.ndarray  # the row each line of ``unit`` belongs to
 
     @property
     def total(self) -> np.ndarray:
@@ -305,6 +311,7 @@ def _source_part(board: Board, source: Source, lo: float, hi: float) -> _SourceP
     unmodulated = SourceLines(source.name, source.reference, f0, f, phase * _total_gain(readings, source.combine))
     if spread is None:
         lines, unspread = unmodulated, None
+        unit, line_owner = SourceLines(source.name, source.reference, f0, f, phase), np.arange(n.size)
         band_lo = band_hi = f
         tuning, owner = f.copy(), np.arange(n.size)
         rbw = resolution_bandwidth_hz(f)
@@ -315,11 +322,13 @@ def _source_part(board: Board, source: Source, lo: float, hi: float) -> _SourceP
         at_lines = path_readings(board, source, line_hz, {k: v[line_owner] for k, v in levels.items()})
         lines = SourceLines(source.name, source.reference, spread.rate_hz, line_hz,
                             amp * _total_gain(at_lines, source.combine), modulated=True)
+        unit = SourceLines(source.name, source.reference, spread.rate_hz, line_hz, amp, modulated=True)
         unspread = unmodulated
         band_lo, band_hi = occupied_band_hz(spread, f0, n)
         rbw = resolution_bandwidth_hz(0.5 * (band_lo + band_hi))
         tuning, owner = _tuning_grid(band_lo - rbw / 2, band_hi + rbw / 2, rbw / 2)
-    return _SourcePart(lines, source, n, f, band_lo, band_hi, levels, readings, tuning, owner, unspread, rbw)
+    return _SourcePart(lines, source, n, f, band_lo, band_hi, levels, readings, tuning, owner, unspread, rbw, unit,
+                       line_owner)
 
 
 def _escape_share(board: Board, part: _SourcePart, rail: str, i: np.ndarray) -> np.ndarray:
@@ -532,6 +541,47 @@ def _check_finite(board: Board, columns: list[dict]) -> None:
                              "load, current and the gains of its paths")
 
 
+@dataclass(frozen=True)
+class Stage:
+    """A board read by the receiver, before its columns: the span, each source's part and its rows' readings.
+
+    What :func:`estimate` builds its columns from, and what :mod:`emispec.risk` starts its samples from.
+    """
+
+    board: Board
+    span_hz: tuple[float, float]
+    parts: list
+    read: list
+
+
+def read_board(board: Board, reuse: Reuse | None = None, step=None, budget: float = 1.0) -> Stage:
+    """Check the board's span and budget, compute every source's part and read every row (steps 1 to 5)."""
+    lo, hi = analysis_span_hz(board)
+    _check_span(board, lo, hi)
+    check_budget(board, budget)
+    step = step or (lambda: None)
+    parts = []
+    for source in board.sources:
+        parts.append(reuse.part(board, source, lo, hi) if reuse is not None else _source_part(board, source, lo, hi))
+        step()
+    read = read_rows([p.lines for p in parts], [p.lines.reference for p in parts], [tuning_of(p) for p in parts],
+                     board.limit.detectors, step)
+    return Stage(board, (lo, hi), parts, read)
+
+
+def tuning_of(part: _SourcePart) -> dict:
+    """A part's first tuning points and each row's tuning range, as :func:`emispec.readings.read_rows` takes them."""
+    return dict(points=part.tuning, owner=part.owner, lo_hz=part.band_lo - part.rbw / 2,
+                hi_hz=part.band_hi + part.rbw / 2, rbw_hz=part.rbw, searched=part.source.spread is not None)
+
+
+def row_limits(board: Board, rows) -> dict[str, np.ndarray]:
+    """The lowest limit over each row's tuning points, per detector (NaN where no line of that detector applies)."""
+    detectors = board.limit.detectors
+    levels = board.limit.levels(rows.points) if rows.points.size else {d: np.array([]) for d in detectors}
+    return {d: -row_max(-levels[d], rows.owner, rows.count) for d in detectors}
+
+
 def estimate(board: Board, reuse: Reuse | None = None, progress=None, budget: float = 1.0) -> Estimate:
     """Every source harmonic's reading, limit and margin, worst first.
 
@@ -550,9 +600,6 @@ def estimate(board: Board, reuse: Reuse | None = None, progress=None, budget: fl
     -------
     Estimate
     """
-    lo, hi = analysis_span_hz(board)
-    _check_span(board, lo, hi)
-    check_budget(board, budget)
     detectors = board.limit.detectors
     total = 2 * len(board.sources) + PASSES
     done = [0]
@@ -562,28 +609,20 @@ def estimate(board: Board, reuse: Reuse | None = None, progress=None, budget: fl
         if progress is not None:
             progress(done[0], total)
 
-    parts = []
-    for source in board.sources:
-        parts.append(reuse.part(board, source, lo, hi) if reuse is not None else _source_part(board, source, lo, hi))
-        step()
-    lines = [p.lines for p in parts]
-    tunings = [dict(points=p.tuning, owner=p.owner, lo_hz=p.band_lo - p.rbw / 2, hi_hz=p.band_hi + p.rbw / 2,
-                    rbw_hz=p.rbw, searched=p.source.spread is not None) for p in parts]
-    read = read_rows(lines, [s.reference for s in lines], tunings, detectors, step)
+    stage = read_board(board, reuse, step, budget)
+    parts, read = stage.parts, stage.read
     done[0] = len(board.sources) + PASSES
     overlaps = _overlap_flags(parts)
     columns = []
     for k, (part, rows) in enumerate(zip(parts, read)):
-        n = part.n.size
         best = {d: rows.best(d) for d in detectors}
-        own = {d: row_max(rows.per_source[k][d], rows.owner, n) for d in detectors}
-        levels = board.limit.levels(rows.points) if rows.points.size else {d: np.array([]) for d in detectors}
-        # the lowest limit over the row's tuning points (NaN where no line of that detector applies)
-        limit = {d: -row_max(-levels[d], rows.owner, n) for d in detectors}
-        columns.append(_source_columns(board, parts, k, rows, own, best, limit, overlaps[k], (lo, hi)))
+        own = {d: row_max(rows.per_source[k][d], rows.owner, part.n.size) for d in detectors}
+        columns.append(_source_columns(board, parts, k, rows, own, best, row_limits(board, rows), overlaps[k],
+                                       stage.span_hz))
         step()
     _check_finite(board, columns)
-    return Estimate(board, (lo, hi), assemble_rows(columns, detectors, board.guard_band_db), tuple(lines))
+    return Estimate(board, stage.span_hz, assemble_rows(columns, detectors, board.guard_band_db),
+                    tuple(p.lines for p in parts))
 
 
 def _dominant(part: _SourcePart) -> np.ndarray:

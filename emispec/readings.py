@@ -3,11 +3,15 @@
 Each row (one harmonic of one source) is read at tuning frequencies in its
 occupied band.  An unmodulated harmonic is tuned onto exactly.  A spread
 harmonic is read on a grid of half a resolution bandwidth across its band plus
-half a bandwidth either side; then a quarter bandwidth either side of every
-local maximum within 1.5 dB of the row's best (between two grid points a peak
-can hide at most 1.5 dB: a CW line half an RBW off the Gaussian filter's centre
-reads 6.02 (1/2)^2 = 1.5 dB low); then, per detector, a compass search around
-the row's best point with steps of RBW/8, /16 and /32.  After the last step
+half a bandwidth either side; then halfway between every two neighbouring
+grid points of which one reads within 1.5 dB of the row's best (between two
+grid points a peak can hide at most 1.5 dB: a CW line half an RBW off the
+Gaussian filter's centre reads 6.02 (1/2)^2 = 1.5 dB low, and on a slope it
+need not show as a local maximum of the grid); then, per detector, a compass
+search with steps of RBW/8, /16 and /32 around the row's best point and every
+local maximum within 0.2 dB of it (on the quarter-RBW grid a peak reads at
+most 6.02 (1/8)^2 = 0.094 dB low, so any of them may be the true maximum;
+where several sources share a band a row has several).  After the last step
 the best point lies within RBW/32 of a local maximum, where a reading shaped
 like the filter falls by at most 6.02 (2/32)^2 = 0.023 dB: the row reads
 within 0.05 dB of the continuous maximum (the tests show it against a dense
@@ -108,34 +112,50 @@ def _read_all(lines, references, batches: list[tuple[np.ndarray, np.ndarray]], d
             for a, b in zip(cuts[:-1], cuts[1:])]
 
 
-def _local_maxima(rows: RowReadings, limit_db: float = 1.5) -> tuple[np.ndarray, np.ndarray]:
-    """Points a quarter RBW either side of each grid maximum within ``limit_db`` of its row's best."""
-    owner = rows.owner
+def _peaks(rows: RowReadings, value: np.ndarray, limit_db: float) -> np.ndarray:
+    """Indices of the points that are local maxima of ``value`` along their row's frequencies and within
+    ``limit_db`` of the row's best."""
+    order = np.lexsort((rows.points, rows.owner))
+    owner, v = rows.owner[order], np.nan_to_num(value[order])
     same_prev = np.concatenate([[False], owner[1:] == owner[:-1]])
     same_next = np.concatenate([owner[:-1] == owner[1:], [False]])
-    keep = np.zeros(owner.size, bool)
+    prev = np.where(same_prev, np.roll(v, 1), -np.inf)
+    nxt = np.where(same_next, np.roll(v, -1), -np.inf)
+    best = np.nan_to_num(row_max(v, owner, rows.count))
+    return order[(v >= prev) & (v >= nxt) & (v > 0) & (v >= best[owner] * 10 ** (-limit_db / 20))]
+
+
+def _local_maxima(rows: RowReadings, limit_db: float = 1.5) -> tuple[np.ndarray, np.ndarray]:
+    """The midpoint of every pair of neighbouring grid points of which one reads within ``limit_db`` of the
+    row's best (per detector): a peak between two grid points can read up to 1.5 dB low at both, even where
+    the grid shows no local maximum (a narrow peak on a slope)."""
+    order = np.lexsort((rows.points, rows.owner))
+    owner, points = rows.owner[order], rows.points[order]
+    pair = owner[1:] == owner[:-1]
+    wanted = np.zeros(pair.shape, bool)
     for value in rows.combined.values():  # each detector may peak elsewhere
-        value = np.nan_to_num(value)
-        prev = np.where(same_prev, np.roll(value, 1), -np.inf)
-        nxt = np.where(same_next, np.roll(value, -1), -np.inf)
-        best = np.nan_to_num(row_max(value, owner, rows.count))
-        keep |= (value >= prev) & (value >= nxt) & (value > 0) & (value >= best[owner] * 10 ** (-limit_db / 20))
-    picked = owner[keep]
-    step = rows.rbw_hz[picked] / 4
-    return _inside(rows, np.concatenate([rows.points[keep] - step, rows.points[keep] + step]),
-                   np.concatenate([picked, picked]))
+        v = np.nan_to_num(value[order])
+        best = np.nan_to_num(row_max(v, owner, rows.count))
+        high = (v > 0) & (v >= best[owner] * 10 ** (-limit_db / 20))
+        wanted |= pair & (high[1:] | high[:-1])
+    return _inside(rows, 0.5 * (points[1:] + points[:-1])[wanted], owner[1:][wanted])
+
+
+#: A local maximum this close to the row's best (dB) is searched too: on the quarter-RBW grid a peak may still
+#: read up to 6.02 (1/8)^2 = 0.094 dB below its top, so it may be the row's true maximum.
+CONTENDER_DB = 0.2
 
 
 def _around_best(rows: RowReadings, step: float) -> tuple[np.ndarray, np.ndarray]:
-    """Points ``step`` RBW either side of each row's best point, per detector."""
+    """Points ``step`` RBW either side of each row's best point and of every local maximum within
+    :data:`CONTENDER_DB` of it, per detector (where sources share a band a row can have several)."""
     points, owners = [], []
-    for det in rows.combined:
-        _, index = rows.best(det)
-        found = np.flatnonzero(index >= 0)
-        centre = rows.points[index[found]]
-        delta = rows.rbw_hz[found] * step
+    for value in rows.combined.values():
+        found = _peaks(rows, value, CONTENDER_DB)
+        centre, row = rows.points[found], rows.owner[found]
+        delta = rows.rbw_hz[row] * step
         points += [centre - delta, centre + delta]
-        owners += [found, found]
+        owners += [row, row]
     points, owners = np.concatenate(points), np.concatenate(owners)
     # one point per distinct (row, frequency)
     _, unique = np.unique(np.stack([owners.astype(float), points]), axis=1, return_index=True)
