@@ -46,6 +46,7 @@ TOP_KEYS = (
     *(Key(section, "tables", schema=cls.KEYS) for section, cls in SOURCE_SECTIONS.items()),
     Key("path", "tables", schema=lambda table: PATH_KINDS[table["kind"]].KEYS),
     Key("rail", "tables", schema=Rail.KEYS),
+    Key("tolerance", "tables"),  # read by emispec.tolerances; an estimate uses the nominal values
 )
 
 

@@ -508,9 +508,12 @@ def report_command(
     everything: bool = typer.Option(False, "--all", help="Test plan with every harmonic."),
     rows: int = typer.Option(20, "--rows", metavar="N", min=1, help="How many of the worst rows the table shows."),
     workers: Optional[int] = WORKERS,
+    samples: int = typer.Option(1000, "--samples", metavar="N", min=10, max=1_000_000,
+                                help="Monte Carlo samples for the tolerance section (boards with [[tolerance]])."),
+    seed: int = typer.Option(1, "--seed", metavar="S", min=0, max=2**63 - 1, help="Seed of those samples."),
     budget: float = BUDGET,
 ) -> None:
-    """One self-contained HTML report: verdict, margins, plots, variants and test plan."""
+    """One self-contained HTML report: verdict, margins, plots, variants, tolerances and test plan."""
     from .outputs import write_file
     from .plan import plan_rows
     from .report import html_text
@@ -519,8 +522,137 @@ def report_command(
     variants = _run_variants(board, sets, zipped, workers, budget) if sets else None
     plan = plan_rows(result, everything, top=10)
     passing = not everything and not (result.over_limit or result.within_guard_band)
-    write_file(out_path, html_text(result, plan, variants, rows, passing=passing))
+    risk = _study(board, samples, seed, None, None, budget)
+    write_file(out_path, html_text(result, plan, variants, rows, passing=passing, risk=risk))
     out.print(f"report: {out_path}", markup=False)
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+#: Margin cells (samples x rows) one study may hold before it is refused (raise with --budget): 500 MB.
+MAX_RISK_CELLS = 125_000_000
+
+
+def _study(board: Path, samples: int, seed: int, workers: int | None, scheduler: str | None, budget: float):
+    """The tolerance study of ``board``: None when the board has no [[tolerance]]."""
+    import contextlib
+
+    from .ensemble import dask_client
+    from .parameters import Template
+    from .risk import Model, study
+    from .tolerances import read_tolerances
+
+    template = Template.load(board)
+    tolerances = read_tolerances(template)
+    if not tolerances:
+        return None
+    model = Model(template, tolerances)
+    rows = len(model.row_keys) if not model.full else 2 * len(_estimate_rows(template))
+    if samples * rows > MAX_RISK_CELLS * budget:
+        raise OptionError(f"--samples {samples}: {samples} samples of {rows} harmonics would hold "
+                          f"{samples * rows:.3g} margins; the budget is {MAX_RISK_CELLS * budget:.3g} (use fewer "
+                          "samples, or raise it with --budget)")
+    remote = workers is not None or scheduler is not None
+    with contextlib.ExitStack() as stack:
+        client = stack.enter_context(dask_client(workers, scheduler)) if remote else None
+        with _SlowProgress(f"{samples} samples", delay=0.0) as bar:
+            bar.update(0, samples)
+            return study(template, tolerances, samples, seed, executor=client, progress=bar.advance, model=model)
+
+
+def _estimate_rows(template) -> list:
+    from .pipeline import estimate
+
+    return estimate(template.nominal).rows.frequency_hz
+
+
+def _percent(p: float, ci) -> str:
+    from .report import percent_text
+
+    return percent_text(p, ci)
+
+
+@app.command("risk")
+@_guarded
+def risk_command(
+    board: Path = BOARD,
+    samples: int = typer.Option(2000, "--samples", metavar="N", min=10, max=10_000_000,
+                                help="Monte Carlo samples of the tolerances (default 2000)."),
+    seed: int = typer.Option(1, "--seed", metavar="S", min=0, max=2**63 - 1,
+                             help="Seed of the draws; the same seed gives the same numbers (default 1)."),
+    json_path: Optional[str] = typer.Option(None, "--json", metavar="PATH",
+                                            help="Write the JSON result to PATH, or '-' for stdout."),
+    out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR",
+                                           help="Write risk.json, risk.csv, risk-samples.csv and the plots into DIR."),
+    rows: int = typer.Option(10, "--rows", metavar="N", min=1, help="How many harmonics the table shows."),
+    workers: Optional[int] = typer.Option(None, "--workers", metavar="N", min=1, max=256,
+                                          help="Run on a local Dask cluster of N processes (pip install "
+                                               "'emispec[cluster]')."),
+    scheduler: Optional[str] = typer.Option(None, "--scheduler", metavar="ADDRESS",
+                                            help="Run on the Dask cluster whose scheduler is at ADDRESS "
+                                                 "(tcp://HOST:PORT)."),
+    budget: float = BUDGET,
+) -> None:
+    """The chance of failing: Monte Carlo over the board's [[tolerance]] entries, per harmonic and for the board."""
+    from .outputs import write_file, write_set
+    from .report import risk_files, risk_json_text
+
+    if workers is not None and scheduler is not None:
+        raise OptionError("--workers and --scheduler: give one (a local cluster, or an existing one)")
+    result = _study(board, samples, seed, workers, scheduler, budget)
+    if result is None:
+        raise OptionError(f"{board}: the board has no [[tolerance]] entries; add one per uncertain key (README, "
+                          "'Tolerances')")
+    if json_path:
+        write_file(json_path, risk_json_text(result))
+    if out_dir is not None:
+        for path in write_set(out_dir, risk_files(result)):
+            (err if json_path == "-" else out).print(f"wrote {path}", markup=False)
+    s = result.summary()
+    if json_path == "-":
+        err.print(f"P(fail) {_percent(s['p_fail'], s['p_fail_ci'])}", markup=False)
+        return
+    _print_risk(result, s, rows)
+
+
+def _print_risk(result, s: dict, count: int) -> None:
+    from .parameters import key_label
+
+    board = result.template.nominal
+    out.print(f"[bold]{esc(board.title)}[/]: {result.samples} samples (seed {result.seed}) of "
+              f"{len(result.tolerances)} tolerance{'s' if len(result.tolerances) > 1 else ''} against "
+              f"{esc(board.limit.name)}")
+    for t in result.tolerances:
+        out.print(f"  {t.key}: {t.text()}" + (f" (group {t.group})" if t.group else ""), markup=False)
+    style = "bold red" if s["p_fail"] > 0 else "bold yellow" if s["p_guard"] > 0 else "bold green"
+    out.print(f"[{style}]P(fail)[/] {_percent(s['p_fail'], s['p_fail_ci'])}: some harmonic over the limit")
+    out.print(f"P(guard band) {_percent(s['p_guard'], s['p_guard_ci'])}: none over, the worst within "
+              f"{board.guard_band_db:g} dB")
+    w, nominal = s["worst_margin_db"], result.nominal_worst
+    if w["p50"] is not None:
+        out.print(f"worst margin: 5 % {w['p05']:+.1f} dB, 50 % {w['p50']:+.1f} dB, 95 % {w['p95']:+.1f} dB"
+                  + (f" (nominal board {nominal:+.1f} dB)" if nominal is not None else ""))
+    if s["drivers"]:
+        out.print("driven by: " + ", ".join(f"{d['key']} {100 * d['share']:.0f} %" for d in s["drivers"][:4]),
+                  markup=False)
+    table = Table(title=f"Harmonics most likely to fail (of {len(result.keys)})", title_style="bold",
+                  title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False, padding=(0, 1), collapse_padding=True)
+    for col in ("source", "n", "MHz", "nom", "5 %", "50 %", "95 %", "fail", "guard"):
+        table.add_column(col, justify="left" if col == "source" else "right", no_wrap=True)
+    table.add_column("driver", no_wrap=True, overflow="ellipsis", max_width=max(16, out.width - 58))
+    guard = board.guard_band_db
+    for r in result.row_table()[:count]:
+        m = r["margin_db"]
+        driver = r["drivers"][0] if r["drivers"] else None
+        table.add_row(esc(r["source"]), str(r["harmonic"]), f"{r['frequency_hz'] / 1e6:.5g}",
+                      _fmt(r["nominal_margin_db"]),
+                      *(f"[{_margin_style(m[k] if m[k] is not None else float('nan'), guard)}]{_fmt(m[k])}[/]"
+                        for k in ("p05", "p50", "p95")),
+                      f"{100 * r['p_fail']:.3g}%", f"{100 * r['p_guard']:.3g}%",
+                      esc(f"{100 * driver['share']:.0f}% {key_label(driver['key'])}") if driver else "-")
+    out.print(table)
+    out.print("[dim]nom / 5 % / 50 % / 95 %: margin in dB of the nominal board and of the samples' percentiles; "
+              "fail / guard: share of the samples over the limit / inside the guard band; driver: the input with "
+              "the largest share of the margin's rank variance (squared Spearman correlation).[/]")
     out.print(f"[dim]{CAUTION}[/]")
 
 

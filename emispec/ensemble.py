@@ -17,6 +17,7 @@ makes a process pool whose workers end when their parent does.
 from __future__ import annotations
 
 import concurrent.futures
+import contextlib
 import dataclasses
 import os
 import sys
@@ -26,6 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .errors import InputError
 from .parameters import Template
 from .pipeline import Estimate, Reuse, estimate
 
@@ -156,3 +158,45 @@ def process_pool(workers: int | None = None) -> concurrent.futures.ProcessPoolEx
     """A process pool whose workers end with this process."""
     return concurrent.futures.ProcessPoolExecutor(workers or os.cpu_count() or 1, initializer=_worker_start,
                                                   initargs=(os.getpid(),))
+
+
+class ClusterError(InputError):
+    """Dask is not installed, or the scheduler cannot be reached (exit 2)."""
+
+
+@contextlib.contextmanager
+def dask_client(workers: int | None = None, scheduler: str | None = None):
+    """A ``dask.distributed`` client: on the cluster at ``scheduler`` (``tcp://host:port``), or on a local
+    cluster of ``workers`` processes (one thread each) that ends with the block.
+
+    Raises
+    ------
+    ClusterError
+        Dask is missing (the message says how to install it) or the scheduler does not answer.
+    """
+    option = "--scheduler" if scheduler else "--workers"
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError:
+        raise ClusterError(f"{option}: needs Dask; install it with pip install 'emispec[cluster]'") from None
+    import logging
+
+    logging.getLogger("distributed").setLevel(logging.ERROR)  # its start-up chatter is not ours to show
+    if scheduler:
+        try:
+            client = Client(scheduler, timeout="10s")
+        except (OSError, TimeoutError, ValueError) as problem:
+            raise ClusterError(f"--scheduler {scheduler}: no Dask scheduler answers there ({problem}); start one "
+                               "with dask scheduler, or check the address (tcp://HOST:PORT)") from None
+        try:
+            yield client
+        finally:
+            client.close()
+        return
+    cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None)
+    client = Client(cluster)
+    try:
+        yield client
+    finally:
+        client.close()
+        cluster.close()

@@ -33,6 +33,7 @@ _OTHER = {"color": "#555555", "line": "-", "marker": "o", "zorder": 2}
 SOURCE_COLORS = ("#1b9e77", "#6a51a3", "#e08214", "#2c7fb8", "#8c510a", "#e7298a", "#66a61e", "#737373",
                  "#17becf", "#b8a000")
 OVER_COLOR = "#d7191c"
+CAUTION_SHORT = "Estimate only; compliance is decided by accredited measurement."
 MARKERS = "os^vD<>ph*"
 
 
@@ -110,7 +111,7 @@ def _finish(fig, ax, est: Estimate, what: str) -> None:
     ax.set_title(f"{est.board.title}: {what} against {est.board.limit.name}\n{verdict_text(est.outcome)}", fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
     _legend(fig, ax)
-    fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
+    fig.text(0.01, 0.005, CAUTION_SHORT, fontsize=7)
 
 
 def _legend(fig, ax) -> None:
@@ -200,7 +201,7 @@ def rail_figure(est: Estimate, rail: RailView):
     ax.set_title(f"{board.title}: rail {rail_name} ({rail.voltage_v:g} V)", fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
     _legend(fig, ax)
-    fig.text(0.01, 0.005, "Estimate only; compliance is decided by accredited measurement.", fontsize=7)
+    fig.text(0.01, 0.005, CAUTION_SHORT, fontsize=7)
     return fig
 
 
@@ -229,6 +230,69 @@ def variants_figure(variants):
     ax.set_ylim(top - 80, top)
     _finish(fig, ax, est0, "variants")
     ax.set_title(f"{est0.board.title}: {len(variants)} variants against {est0.board.limit.name}", fontsize=10)
+    return fig
+
+
+def risk_figure(result):
+    """The board's worst margin over the samples: histogram and cumulative share, against the limit (0 dB)
+    and the guard band.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    worst = result.worst[np.isfinite(result.worst)]
+    guard = result.guard_band_db
+    summary = result.summary()
+    fig, ax = plt.subplots(figsize=(10, 5), layout="constrained")
+    if worst.size:
+        ax.hist(worst, bins=int(np.clip(np.sqrt(worst.size), 10, 60)), color=SOURCE_COLORS[3], alpha=0.75,
+                label=f"worst margin of each of {result.samples} samples")
+    ax.axvline(0.0, color=OVER_COLOR, lw=1.6, label="limit (margin 0 dB)")
+    if guard > 0:
+        ax.axvline(guard, color="gray", lw=1.0, ls="--", label=f"guard band ({guard:g} dB)")
+    if result.nominal_worst is not None:
+        ax.axvline(result.nominal_worst, color="black", lw=1.0, ls=":",
+                   label=f"nominal board ({result.nominal_worst:+.1f} dB)")
+    ax.set_xlabel(f"Worst margin of the board [dB] (negative: over the limit)\n{CAUTION_SHORT}", fontsize=9)
+    ax.set_ylabel("Samples")
+    cdf = ax.twinx()
+    if worst.size:
+        x = np.sort(worst)
+        cdf.plot(x, np.arange(1, x.size + 1) / x.size, color="black", lw=1.2, label="share of samples at or below")
+    cdf.set_ylim(0, 1)
+    cdf.set_ylabel("Share of samples at or below")
+    ax.set_title(f"{result.template.nominal.title}: P(fail) {100 * summary['p_fail']:.3g} %, P(guard band) "
+                 f"{100 * summary['p_guard']:.3g} % ({result.samples} samples, seed {result.seed})", fontsize=10)
+    ax.grid(True, alpha=0.3)
+    handles = ax.get_legend_handles_labels()[0] + cdf.get_legend_handles_labels()[0]
+    labels = ax.get_legend_handles_labels()[1] + cdf.get_legend_handles_labels()[1]
+    fig.legend(handles, labels, fontsize=8, loc="outside right upper")
+    return fig
+
+
+def risk_drivers_figure(result):
+    """What drives the board's worst margin: each independent draw's share (squared rank correlation) and the
+    sign of its effect.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    drivers = result.summary()["drivers"]
+    fig, ax = plt.subplots(figsize=(10, 1.2 + 0.4 * max(len(drivers), 1)), layout="constrained")
+    labels = [d["key"] for d in drivers][::-1]
+    shares = [100 * d["share"] for d in drivers][::-1]
+    colors = [OVER_COLOR if d["rho"] < 0 else SOURCE_COLORS[0] for d in drivers][::-1]
+    ax.barh(range(len(drivers)), shares, color=colors)
+    ax.set_yticks(range(len(drivers)), labels, fontsize=8)
+    ax.set_xlim(0, 100)
+    ax.set_xlabel("Share of the worst margin's rank variance [%] (red: a higher value lowers the margin)"
+                  f"\n{CAUTION_SHORT}", fontsize=9)
+    ax.set_title(f"{result.template.nominal.title}: what drives the worst margin", fontsize=10)
+    ax.grid(True, axis="x", alpha=0.3)
+    if not drivers:
+        ax.text(50, 0, "no input correlates with the worst margin", ha="center", va="center")
     return fig
 
 

@@ -33,7 +33,8 @@ from .trace import Trace
 __all__ = [
     "CAUTION", "SCHEMA", "Views", "views_of", "result_dict", "row_dict", "csv_text", "swept_csv_text",
     "markdown_text", "output_files", "write_outputs", "plan_csv_text", "plan_markdown_text", "variants_rows",
-    "variants_csv_text", "html_text",
+    "variants_csv_text", "html_text", "RISK_SCHEMA", "risk_dict", "risk_json_text", "risk_csv_text",
+    "risk_samples_csv_text", "risk_files",
 ]
 
 SCHEMA = "emispec.result/1"
@@ -402,11 +403,12 @@ def _html_variants_table(variants) -> str:
 
 
 def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 20, views: Views | None = None,
-              passing: bool = False) -> str:
+              passing: bool = False, risk=None) -> str:
     """One self-contained HTML report: inline SVG plots, no scripts, no external assets.
 
     User text (titles, names, notes) is escaped.  ``rows`` is how many of the worst rows the margin table
-    shows; ``passing`` says that the plan lists the closest rows of a board that keeps its guard band.
+    shows; ``passing`` says that the plan lists the closest rows of a board that keeps its guard band;
+    ``risk`` (a :class:`emispec.risk.RiskResult`) adds the tolerance study.
     """
     from .plot import rail_figure, spectrum_figure, svg_text, swept_figure, variants_figure
 
@@ -447,8 +449,130 @@ def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 20, vi
     if variants:
         parts += ["<h2>Variants</h2>", _html_variants_table(variants),
                   f"<figure>{svg_text(variants_figure(variants))}</figure>"]
+    if risk is not None:
+        parts += _html_risk_section(risk, rows)
     parts += [f"<h2>{html.escape(plan_title)}</h2>",
               _html_plan_table(plan) if plan else "<p>Nothing within the guard band.</p>",
               f'<p class="caution">{html.escape(CAUTION)}</p>',
               f"<p>emispec {html.escape(__version__)}; input sha256 {html.escape(b.sha256)}</p></body></html>"]
     return "\n".join(parts) + "\n"
+
+
+# ---------------------------------------------------------------- risk (Monte Carlo over the tolerances)
+
+RISK_SCHEMA = "emispec.risk/1"
+
+
+def _p(x) -> float | None:
+    return _num(x, 6)
+
+
+def _drivers_json(drivers: list[dict]) -> list[dict]:
+    return [{**d, "share": _p(d["share"]), "rho": _num(d["rho"], 4)} for d in drivers]
+
+
+def risk_dict(result) -> dict:
+    """A study's result (schema ``emispec.risk/1``): the board's chance of failing and every row's."""
+    board = result.template.nominal
+    summary = result.summary()
+    rows = [{"source": r["source"], "harmonic": r["harmonic"], "frequency_hz": _num(r["frequency_hz"], 0),
+             "nominal_margin_db": _num(r["nominal_margin_db"]),
+             "margin_db": {k: _num(v) for k, v in r["margin_db"].items()}, "p_fail": _p(r["p_fail"]),
+             "p_fail_ci": [_p(x) for x in r["p_fail_ci"]], "p_guard": _p(r["p_guard"]),
+             "drivers": _drivers_json(r["drivers"]), "samples_with_row": r["samples_with_row"]}
+            for r in result.row_table()]
+    return {
+        "schema": RISK_SCHEMA,
+        "emispec_version": __version__,
+        "caution": CAUTION,
+        "board": {"title": board.title, "file": board.file, "sha256": board.sha256},
+        "limit": {"name": board.limit.name, "unit": board.limit.unit},
+        "guard_band_db": board.guard_band_db,
+        "samples": result.samples,
+        "seed": result.seed,
+        "tolerances": [t.as_json() for t in result.tolerances],
+        "board_p_fail": _p(summary["p_fail"]),
+        "board_p_fail_ci": [_p(x) for x in summary["p_fail_ci"]],
+        "board_p_guard": _p(summary["p_guard"]),
+        "board_p_guard_ci": [_p(x) for x in summary["p_guard_ci"]],
+        "nominal_worst_margin_db": _num(result.nominal_worst),
+        "worst_margin_db": {k: _num(v) for k, v in summary["worst_margin_db"].items()},
+        "drivers": _drivers_json(summary["drivers"]),
+        "rows": rows,
+    }
+
+
+def risk_json_text(result) -> str:
+    return json.dumps(risk_dict(result), indent=1, allow_nan=False) + "\n"
+
+
+def risk_csv_text(result) -> str:
+    """Every row, most likely to fail first: P(fail) with its interval, P(guard band), margins, top driver."""
+    head = ["source", "harmonic", "frequency_mhz", "nominal_margin_db", "margin_p05_db", "margin_p50_db",
+            "margin_p95_db", "p_fail", "p_fail_low", "p_fail_high", "p_guard", "driver", "driver_share"]
+    num, p = lambda x: _csv_number(x, 2), lambda x: _csv_number(x, 6)
+    lines = ([r["source"], r["harmonic"], f"{r['frequency_hz'] / 1e6:.3f}", num(r["nominal_margin_db"]),
+              *(num(r["margin_db"][k]) for k in ("p05", "p50", "p95")), p(r["p_fail"]), p(r["p_fail_ci"][0]),
+              p(r["p_fail_ci"][1]), p(r["p_guard"]), r["drivers"][0]["key"] if r["drivers"] else "",
+              p(r["drivers"][0]["share"]) if r["drivers"] else ""] for r in result.row_table())
+    return _csv(head, lines)
+
+
+def _value_column(tolerance) -> str:
+    return f"{tolerance.key}_{unit_token(tolerance.unit)}" if tolerance.unit else tolerance.key
+
+
+def risk_samples_csv_text(result) -> str:
+    """One line per sample: each tolerance's value (SI, the unit in the column name), the worst margin and
+    where it was, so that a user can plot the samples again."""
+    head = ["sample", *(_value_column(t) for t in result.tolerances), "worst_margin_db", "worst_source",
+            "worst_harmonic"]
+    worst = result.worst
+    filled = np.where(np.isnan(result.margins), np.inf, result.margins)
+    at = np.argmin(filled, axis=1) if result.margins.shape[1] else np.zeros(result.samples, int)
+    lines = ([str(i), *(f"{v:.6g}" for v in result.values[i]), _csv_number(worst[i], 3),
+              result.keys[at[i]][0] if np.isfinite(worst[i]) else "",
+              str(result.keys[at[i]][1]) if np.isfinite(worst[i]) else ""] for i in range(result.samples))
+    return _csv(head, lines)
+
+
+def risk_files(result) -> dict:
+    """Every file ``risk --out`` writes: name -> function giving its contents."""
+    from .plot import png_bytes, risk_drivers_figure, risk_figure
+
+    return {
+        "risk.json": lambda: risk_json_text(result),
+        "risk.csv": lambda: risk_csv_text(result),
+        "risk-samples.csv": lambda: risk_samples_csv_text(result),
+        "risk-margin.png": lambda: png_bytes(risk_figure(result)),
+        "risk-drivers.png": lambda: png_bytes(risk_drivers_figure(result)),
+    }
+
+
+def percent_text(p: float, ci: list) -> str:
+    """``12.3 % (95 % CI 10.8-13.9 %)``."""
+    return f"{100 * p:.3g} % (95 % CI {100 * ci[0]:.3g}-{100 * ci[1]:.3g} %)"
+
+
+def _html_risk_section(result, rows: int) -> list[str]:
+    from .plot import risk_drivers_figure, risk_figure, svg_text
+
+    s = result.summary()
+    head = ["source", "n", "MHz", "nominal dB", "5 % dB", "50 % dB", "95 % dB", "P(fail)", "P(guard)", "driver"]
+    cells = []
+    for r in result.row_table()[:rows]:
+        driver = r["drivers"][0] if r["drivers"] else None
+        cells.append([r["source"], str(r["harmonic"]), f"{r['frequency_hz'] / 1e6:.6g}",
+                      *(_csv_number(x, 1) or "-" for x in (r["nominal_margin_db"], *r["margin_db"].values())),
+                      f"{100 * r['p_fail']:.3g} %", f"{100 * r['p_guard']:.3g} %",
+                      f"{driver['key']} ({100 * driver['share']:.0f} %)" if driver else "-"])
+    return [
+        f"<h2>Tolerances and the chance of failing ({result.samples} samples, seed {result.seed})</h2>",
+        "<ul>", *(f"<li><code>{html.escape(t.key)}</code>: {html.escape(t.text())}</li>" for t in result.tolerances),
+        "</ul>",
+        f"<p>P(fail): {html.escape(percent_text(s['p_fail'], s['p_fail_ci']))}; P(guard band): "
+        f"{html.escape(percent_text(s['p_guard'], s['p_guard_ci']))}.</p>",
+        _html_table(head, cells, {0, 9}),
+        f"<figure>{svg_text(risk_figure(result))}</figure>",
+        f"<figure>{svg_text(risk_drivers_figure(result))}</figure>",
+    ]
