@@ -18,7 +18,7 @@ command line's ``--version`` and ``--help``) does not load numpy and scipy.
 
 import importlib
 
-__version__ = "0.2.0"
+__version__ = "0.3.0"
 
 #: The one line every output carries.
 CAUTION = (

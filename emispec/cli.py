@@ -538,7 +538,7 @@ def _study(board: Path, samples: int, seed: int, workers: int | None, scheduler:
 
     from .ensemble import dask_client
     from .parameters import Template
-    from .risk import Model, study
+    from .risk import SLOW_PIECE, Model, ModelPool, study
     from .tolerances import read_tolerances
 
     template = Template.load(board)
@@ -553,7 +553,12 @@ def _study(board: Path, samples: int, seed: int, workers: int | None, scheduler:
                           "samples, or raise it with --budget)")
     remote = workers is not None or scheduler is not None
     with contextlib.ExitStack() as stack:
-        client = stack.enter_context(dask_client(workers, scheduler)) if remote else None
+        if remote:
+            client = stack.enter_context(dask_client(workers, scheduler))
+        elif model.slow and samples > SLOW_PIECE:  # samples that read sources again: every core of this machine
+            client = stack.enter_context(ModelPool(model))
+        else:
+            client = None
         with _SlowProgress(f"{samples} samples", delay=0.0) as bar:
             bar.update(0, samples)
             return study(template, tolerances, samples, seed, executor=client, progress=bar.advance, model=model)
@@ -634,21 +639,27 @@ def _print_risk(result, s: dict, count: int) -> None:
     if s["drivers"]:
         out.print("driven by: " + ", ".join(f"{d['key']} {100 * d['share']:.0f} %" for d in s["drivers"][:4]),
                   markup=False)
-    table = Table(title=f"Harmonics most likely to fail (of {len(result.keys)})", title_style="bold",
-                  title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False, padding=(0, 1), collapse_padding=True)
-    for col in ("source", "n", "MHz", "nom", "5 %", "50 %", "95 %", "fail", "guard"):
-        table.add_column(col, justify="left" if col == "source" else "right", no_wrap=True)
-    table.add_column("driver", no_wrap=True, overflow="ellipsis", max_width=max(16, out.width - 58))
-    guard = board.guard_band_db
+    heads = ("source", "n", "MHz", "nom", "5 %", "50 %", "95 %", "fail", "guard")
+    cells, drivers = [], []
     for r in result.row_table()[:count]:
         m = r["margin_db"]
         driver = r["drivers"][0] if r["drivers"] else None
-        table.add_row(esc(r["source"]), str(r["harmonic"]), f"{r['frequency_hz'] / 1e6:.5g}",
-                      _fmt(r["nominal_margin_db"]),
-                      *(f"[{_margin_style(m[k] if m[k] is not None else float('nan'), guard)}]{_fmt(m[k])}[/]"
-                        for k in ("p05", "p50", "p95")),
-                      f"{100 * r['p_fail']:.3g}%", f"{100 * r['p_guard']:.3g}%",
-                      esc(f"{100 * driver['share']:.0f}% {key_label(driver['key'])}") if driver else "-")
+        cells.append([r["source"], str(r["harmonic"]), f"{r['frequency_hz'] / 1e6:.5g}", _fmt(r["nominal_margin_db"]),
+                      *(_fmt(m[k]) for k in ("p05", "p50", "p95")), f"{100 * r['p_fail']:.3g}%",
+                      f"{100 * r['p_guard']:.3g}%"])
+        drivers.append(f"{100 * driver['share']:.0f}% {key_label(driver['key'])}" if driver else "-")
+    # the numbers keep their width; the driver takes what is left of the terminal
+    used = sum(max([len(h)] + [len(c[i]) for c in cells]) + 2 for i, h in enumerate(heads))
+    table = Table(title=f"Harmonics most likely to fail (of {len(result.keys)})", title_style="bold",
+                  title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False, padding=(0, 1), collapse_padding=True)
+    for col in heads:
+        table.add_column(col, justify="left" if col == "source" else "right", no_wrap=True)
+    table.add_column("driver", no_wrap=True, overflow="ellipsis", max_width=max(8, out.width - used - 2))
+    guard = board.guard_band_db
+    for r, c, driver in zip(result.row_table(), cells, drivers):
+        styled = [f"[{_margin_style(r['margin_db'][k] if r['margin_db'][k] is not None else float('nan'), guard)}]"
+                  f"{v}[/]" for k, v in zip(("p05", "p50", "p95"), c[4:7])]
+        table.add_row(esc(c[0]), *c[1:4], *styled, *c[7:], esc(driver))
     out.print(table)
     out.print("[dim]nom / 5 % / 50 % / 95 %: margin in dB of the nominal board and of the samples' percentiles; "
               "fail / guard: share of the samples over the limit / inside the guard band; driver: the input with "

@@ -60,14 +60,14 @@ import numpy as np
 from .parameters import Template
 from .pipeline import (Reuse, _nearest, _quantities_here, _source_part, _total_gain, analysis_span_hz, estimate,
                        read_board, row_limits, tuning_of)
-from .readings import combine, read_rows, row_best
+from .readings import combine, read_rows, row_best, row_max
 from .receiver import REACH_RBW, resolution_bandwidth_hz, sweep
 from .schema import BoardError
 from .sources import QUANTITIES
 from .tolerances import CHUNK, Tolerance, draw, units_of
 from .units import db_micro
 
-__all__ = ["Model", "RiskResult", "study", "full_margins", "clopper_pearson", "rank_shares", "TABLE_ERROR"]
+__all__ = ["Model", "ModelPool", "RiskResult", "study", "full_margins", "clopper_pearson", "rank_shares", "TABLE_ERROR"]
 
 #: Interpolation error allowed in a tabulated term, relative (5e-4 is 0.0043 dB), and the most nodes a table takes.
 TABLE_ERROR = 5e-4
@@ -78,6 +78,16 @@ NEGLIGIBLE = 1e-4
 #: Another source reading at least this fraction of a row's reading at one of its points (-40 dB) may take the
 #: row's maximum there in a sample.
 SHARED = 1e-2
+#: A moving source that reads less than this share of a fast row's least maximum at a point (bounded with a
+#: safety factor) is not read there: it would add at most 10 log10(1 + 0.03^2) = 0.004 dB.
+MOVED_SHARE = 0.03
+#: A coarse point this close to its row's best (dB) may neighbour the row's maximum (see ``Model._contenders``).
+CONTENDER_DB = 0.3
+#: Lines of a moving source below this share of its largest line (-120 dB) reach nothing that matters.
+TAIL = 1e-6
+MOVED_SAFETY = 2.0
+#: Samples per piece of work where each sample reads sources again (pieces this small keep every worker busy).
+SLOW_PIECE = 16
 #: Draws (and their seed) that show the model which weights samples give the sources (see ``Model._pilot``).
 PILOT = 1024
 PILOT_SEED = 20261202
@@ -199,6 +209,12 @@ class Model:
             self.moved = sorted({k for e in self._effects for k in e["moved"]})
             self._setup(read_board(board))
 
+    @property
+    def slow(self) -> bool:
+        """Whether a sample reads sources again (lines that move, or a span that does), rather than only
+        recombining the nominal readings."""
+        return self.full or bool(self.moved)
+
     # ------------------------------------------------------------ what each tolerance changes
 
     def _effect(self, tolerance: Tolerance) -> dict:
@@ -272,7 +288,52 @@ class Model:
                 with np.errstate(invalid="ignore", divide="ignore"):
                     per_unit = np.where(at > 0, parts[f.k].lines.line_amplitude[keep] / at, unit.line_amplitude[keep])
                 f.unit_hz, f.unit_amp, f.unit_owner = unit.line_hz[keep], per_unit, owner[keep]
-            self.moved_points = {k: self._inside(self.point_hz, swept) for k in moved}
+            near = self._inside(self.point_hz, swept)
+            floor = self._row_floor(read, pilot)
+            self.moved_points = {k: self._significant(k, near, floor) for k in moved}
+            self.moved_coarse = {k: _every_fourth(self.point_row[p]) for k, p in self.moved_points.items()}
+
+    def _row_floor(self, read, pilot: dict) -> dict[str, np.ndarray]:
+        """Each fast row's least maximum over the samples, per detector: its own source's nominal reading at
+        its best point times the least amplitude its harmonic takes in the pilot draws."""
+        floor = {d: [] for d in self.detectors}
+        for f in self.fast:
+            rows, least = read[f.k], pilot[f.k].min(axis=0)
+            for d in self.detectors:
+                own = row_max(np.nan_to_num(rows.per_source[f.k][d]), rows.owner, rows.count)
+                floor[d].append(np.nan_to_num(own) * least)
+        return {d: _cat(v) for d, v in floor.items()}
+
+    def _significant(self, k: int, near: np.ndarray, floor: dict) -> np.ndarray:
+        """The fast rows' points (of ``near``) where moving source ``k`` may read at least :data:`MOVED_SHARE`
+        of the row's least maximum; elsewhere it adds at most 10 log10(1 + MOVED_SHARE^2) dB to the row.
+
+        What it may read is bounded by its peak reading (at least that of any detector) at 9 values across each
+        tolerance that moves it (the ends of its other tolerances), times :data:`MOVED_SAFETY`.
+        """
+        if not near.size:
+            return near
+        others = [j for j, e in enumerate(self._effects) if k not in e["moved"] and self._affects(e, k)]
+        ends = list(itertools.islice(itertools.product(*(self.tolerances[j].support for j in others)), 8))
+        bound = np.zeros(near.size)
+        for moving, values in itertools.product(self._mover_settings(k, 9), ends):
+            lines = self._moved_lines(k, {**moving, **{self.tolerances[j].key: v for j, v in zip(others, values)}})
+            peak = sweep(lines.line_hz, lines.line_amplitude, lines.grid_hz, self.point_hz[near], ("PK",))["PK"]
+            bound = np.maximum(bound, np.nan_to_num(peak))
+        row = self.point_row[near]
+        keep = np.logical_or.reduce([MOVED_SAFETY * bound >= MOVED_SHARE * floor[d][row] for d in self.detectors])
+        return near[keep]
+
+    def _moved_lines(self, k: int, setting: dict):
+        variant = self.template.board_at(setting)
+        return _source_part(variant, variant.sources[k], *self.span_hz).lines
+
+    def _affects(self, effect: dict, k: int) -> bool:
+        """Whether a tolerance changes source ``k``'s levels or the gain of one of its paths."""
+        source, paths = self.template.nominal.sources[k], self.template.nominal.paths
+        return k in effect["level"] or any(p in effect["paths"] or (paths[p].input == "escape" and
+                                                                    source.rail in effect["rails"])
+                                           for p in source.paths)
 
     def _weights(self, parts, fast: list[int], first: np.ndarray) -> None:
         """The sparse maps from the sample's per-path amplitudes to what the receiver reads at each point.
@@ -337,14 +398,15 @@ class Model:
         pairs, points = pair_point.size, point_hz.size
         # the pair-level route (sources in amplitude somewhere) or straight to the points (all in power)
         self.direct = not self.grouped_board and not coherent.any()
-        q, q_index = np.unique(pair_point * (len(groups) + 1) + pair_group, return_inverse=True)
-        self.q_point, self.q_group = q // (len(groups) + 1), q % (len(groups) + 1)
-        # stored transposed (targets x sources), so that a chunk's arrays stay (targets x samples) throughout
-        self.pair_q = sparse.csr_array((np.ones(pairs), (q_index, np.arange(pairs))), shape=(q.size, pairs),
-                                       dtype=np.float32)
-        self.q_to_point = sparse.csr_array((np.ones(q.size), (self.q_point, np.arange(q.size))),
-                                           shape=(points, q.size), dtype=np.float32)
-        self.pair_coherent = coherent
+        if not self.direct:
+            q, q_index = np.unique(pair_point * (len(groups) + 1) + pair_group, return_inverse=True)
+            self.q_point, self.q_group = q // (len(groups) + 1), q % (len(groups) + 1)
+            # stored transposed (targets x sources), so that a chunk's arrays stay (targets x samples) throughout
+            self.pair_q = sparse.csr_array((np.ones(pairs), (q_index, np.arange(pairs))), shape=(q.size, pairs),
+                                           dtype=np.float32)
+            self.q_to_point = sparse.csr_array((np.ones(q.size), (self.q_point, np.arange(q.size))),
+                                               shape=(points, q.size), dtype=np.float32)
+            self.pair_coherent = coherent
         self.maps, self.defined = {}, {}
         for d in detectors:
             w = _cat(weight[d])
@@ -443,26 +505,38 @@ class Model:
                 owner.append(np.full(int(chosen.sum()), r))
         return _cat(hz), _cat(owner, int)
 
+    def _mover_settings(self, k: int, nodes: int) -> list[dict]:
+        """Values of the tolerances that move source ``k``: ``nodes`` across one, the corners of several."""
+        movers = [j for j, e in enumerate(self._effects) if k in e["moved"]]
+        axes = ([np.linspace(*self.tolerances[movers[0]].support, nodes)] if len(movers) == 1 else
+                [self.tolerances[j].support for j in movers])
+        return [{self.tolerances[j].key: v for j, v in zip(movers, values)}
+                for values in itertools.islice(itertools.product(*axes), 64)]
+
     def _swept_bands(self) -> np.ndarray:
-        """Sorted, merged frequency ranges the moving sources' lines can reach over their tolerances."""
-        ranges = []
+        """Sorted, merged frequency ranges the moving sources' lines can reach over their tolerances: within the
+        receiver's reach of every line above :data:`TAIL` of the source's largest (a spread line spectrum has
+        tails beyond its occupied band that a weak neighbour can notice)."""
         lo, hi = self.span_hz
+        starts, ends = [], []
         for k in self.moved:
-            movers = [j for j, e in enumerate(self._effects) if k in e["moved"]]
-            for ends in itertools.islice(itertools.product(*(self.tolerances[j].support for j in movers)), 64):
-                variant = self.template.board_at({self.tolerances[j].key: v for j, v in zip(movers, ends)})
-                part = _source_part(variant, variant.sources[k], lo, hi)
-                reach = 1.5 * REACH_RBW * resolution_bandwidth_hz(part.band_hi)
-                ranges.append(np.stack([part.band_lo - reach, part.band_hi + reach], axis=1))
-        spans = np.concatenate(ranges) if ranges else np.empty((0, 2))
-        spans = spans[np.argsort(spans[:, 0])]
-        merged: list[list[float]] = []
-        for a, b in spans:
-            if merged and a <= merged[-1][1]:
-                merged[-1][1] = max(merged[-1][1], b)
-            else:
-                merged.append([a, b])
-        return np.array(merged).reshape(-1, 2)
+            for setting in self._mover_settings(k, 5):
+                variant = self.template.board_at(setting)
+                lines = _source_part(variant, variant.sources[k], lo, hi).lines
+                amplitude = np.abs(lines.line_amplitude)
+                f = lines.line_hz[amplitude >= TAIL * amplitude.max(initial=0.0)]
+                reach = 1.5 * REACH_RBW * resolution_bandwidth_hz(f)
+                starts.append(f - reach)
+                ends.append(f + reach)
+        if not starts:
+            return np.empty((0, 2))
+        a, b = np.concatenate(starts), np.concatenate(ends)
+        order = np.argsort(a)
+        a, b = a[order], np.maximum.accumulate(b[order])
+        new = np.concatenate([[True], a[1:] > b[:-1]])  # a gap before this range: a new merged range
+        first = np.flatnonzero(new)
+        last = np.concatenate([first[1:] - 1, [a.size - 1]])
+        return np.stack([a[first], b[last]], axis=1)
 
     @staticmethod
     def _inside(x: np.ndarray, swept: np.ndarray) -> np.ndarray:
@@ -568,15 +642,17 @@ class Model:
         boards = [self.template.board_at(dict(zip((t.key for t in self.tolerances), v))) for v in values] \
             if self.joint or self.moved else None
         x, amplitude = self._amplitudes(values, boards)
-        moved = [self._read_moved(b, a) for b, a in zip(boards, amplitude)] if self.moved else []
         xt = np.ascontiguousarray(x.T, dtype=np.float32)  # coordinates x samples; single precision is 1e-6 dB
+        if self.direct:  # reading^2 at each point = sum of (W X)^2; the moving sources' added sample by sample
+            powers = {d: self.maps[d] @ (xt * xt) for d in self.detectors}
+            moved = [self._read_moved(b, a, {d: p[:, i] for d, p in powers.items()})
+                     for i, (b, a) in enumerate(zip(boards, amplitude))] if self.moved else []
+        else:
+            moved = [self._read_moved(b, a) for b, a in zip(boards, amplitude)] if self.moved else []
         readings = {}
         for d in self.detectors:
-            if self.direct:  # reading^2 at each point = sum of (W X)^2
-                power = self.maps[d] @ (xt * xt)
-                for i, r in enumerate(moved):
-                    for reading in r["at_points"].values():
-                        power[:, i] += reading[d] ** 2
+            if self.direct:
+                power = powers[d]
             else:
                 squared = self.maps[d] @ (xt * xt)
                 linear = self.maps[d] @ xt
@@ -602,8 +678,12 @@ class Model:
         keys += list(extra)
         return keys, np.concatenate([worst, np.array(list(extra.values())).T.reshape(samples, -1)], axis=1)
 
-    def _read_moved(self, board, amplitude: np.ndarray) -> dict:
-        """A sample's moving sources: their rows read again, and their lines read at the fast rows' points."""
+    def _read_moved(self, board, amplitude: np.ndarray, power: dict | None = None) -> dict:
+        """A sample's moving sources: their rows read again, and their lines read at the fast rows' points.
+
+        With the sample's ``power`` at the points (sources adding in power), the moving lines' power is added to
+        it in place, read at every fourth of a row's points first and then only between those that may hold
+        the row's maximum (:meth:`_contenders`); otherwise their reading at every point is returned."""
         lo, hi = self.span_hz
         parts = [_source_part(board, board.sources[k], lo, hi) for k in self.moved]
         lines, tunings = [p.lines for p in parts], [tuning_of(p) for p in parts]
@@ -626,10 +706,57 @@ class Model:
             worst = _worst(reading, row_limits(board, r))
             rows.update({(part.source.name, int(n)): float(m) for n, m in zip(part.n, worst)})
             near = self.moved_points[k]
-            at = sweep(part.lines.line_hz, part.lines.line_amplitude, part.lines.grid_hz, self.point_hz[near],
-                       self.detectors)
-            at_points[k] = {d: _scatter(near, np.nan_to_num(at[d]), self.point_hz.size) for d in self.detectors}
+            read_at = lambda where, part=part: sweep(part.lines.line_hz, part.lines.line_amplitude,
+                                                     part.lines.grid_hz, self.point_hz[where], self.detectors)
+            if power is None:
+                at = read_at(near)
+                at_points[k] = {d: _scatter(near, np.nan_to_num(at[d]), self.point_hz.size) for d in self.detectors}
+                continue
+            coarse = near[self.moved_coarse[k]]
+            for where in (coarse, None):
+                if where is None:
+                    where = near[self._contenders(k, power)]
+                at = read_at(where)
+                for d in self.detectors:
+                    power[d][where] += np.nan_to_num(at[d]).astype(np.float32) ** 2
         return dict(rows=rows, at_points=at_points)
+
+    def _contenders(self, k: int, power: dict) -> np.ndarray:
+        """Positions (in ``moved_points[k]``) between the coarse points that may hold a row's maximum: the three
+        either side of every coarse point that is a local maximum within :data:`CONTENDER_DB` of its row's
+        coarse best, per detector.  A peak between coarse points (RBW/8 apart) reads at most
+        6.02 (1/16)^2 = 0.024 dB lower at the nearest of them."""
+        near, positions = self.moved_points[k], self.moved_coarse[k]
+        rows = self.point_row[near[positions]]
+        same_prev = np.concatenate([[False], rows[1:] == rows[:-1]])
+        same_next = np.concatenate([rows[:-1] == rows[1:], [False]])
+        starts = _starts(rows)
+        lengths = np.diff(np.append(starts, rows.size))
+        picked = np.zeros(positions.size, bool)
+        for d in self.detectors:
+            value = np.where(self.defined[d][near[positions]], power[d][near[positions]], 0.0)
+            prev = np.where(same_prev, np.roll(value, 1), -1.0)
+            nxt = np.where(same_next, np.roll(value, -1), -1.0)
+            best = np.repeat(np.maximum.reduceat(value, starts), lengths) if rows.size else value
+            picked |= (value > 0) & (value >= prev) & (value >= nxt) & (value >= best * 10 ** (-CONTENDER_DB / 10))
+        centre = positions[picked]
+        around = centre[:, None] + np.array([-3, -2, -1, 1, 2, 3])
+        inside = (around >= 0) & (around < near.size)
+        around = np.where(inside, around, centre[:, None])
+        row = self.point_row[near]
+        fine = np.ones(near.size, bool)
+        fine[positions] = False  # read already
+        keep = inside & (row[around] == row[centre][:, None]) & fine[around]
+        return np.unique(around[keep])
+
+
+def _every_fourth(rows: np.ndarray) -> np.ndarray:
+    """Positions of every fourth point of each row (and its last), ``rows`` sorted."""
+    starts = _starts(rows)
+    rank = np.arange(rows.size) - np.repeat(starts, np.diff(np.append(starts, rows.size)))
+    keep = rank % 4 == 0
+    keep[np.append(starts[1:] - 1, rows.size - 1) if rows.size else []] = True
+    return np.flatnonzero(keep)
 
 
 def _scatter(index: np.ndarray, values: np.ndarray, size: int) -> np.ndarray:
@@ -673,6 +800,30 @@ def _chunk(model: Model, values: np.ndarray):
     except BoardError as problem:  # a sample whose keys together break a rule of the board
         raise BoardError(problem.file, problem.key, f"{problem.problem} (in a sample of the tolerances; narrow "
                          "them so that every combination is a valid board)") from None
+
+
+_INSTALLED: dict = {}
+
+
+def _install(parent: int, model: Model) -> None:
+    from .ensemble import _worker_start
+
+    _worker_start(parent)
+    _INSTALLED["model"] = model
+
+
+def _installed_chunk(values: np.ndarray):
+    return _chunk(_INSTALLED["model"], values)
+
+
+class ModelPool(concurrent.futures.ProcessPoolExecutor):
+    """A process pool whose workers receive the model once, when they start (a model of a large board is
+    tens of MB: sent with every piece of work it would cost more than the work)."""
+
+    def __init__(self, model: Model, workers: int | None = None):
+        import os
+
+        super().__init__(workers or os.cpu_count() or 1, initializer=_install, initargs=(os.getpid(), model))
 
 
 def _merge(results: list[tuple[list, np.ndarray]]) -> tuple[list, np.ndarray]:
@@ -846,15 +997,17 @@ def study(template: Template, tolerances, samples: int, seed: int, executor=None
     tolerances : sequence of Tolerance
     samples, seed : int
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
-        Where to run the chunks (of :data:`emispec.tolerances.CHUNK` samples); None runs here.  Results do not
-        depend on it.
+        Where to run the pieces of work (:data:`emispec.tolerances.CHUNK` samples, :data:`SLOW_PIECE` where
+        samples read sources again); None runs here.  Results do not depend on it.
     progress : callable, optional
         Called with the number of samples just finished.
     """
     tolerances = tuple(tolerances)
     values = draw(tolerances, samples, seed)
     model = model or Model(template, tolerances)
-    pieces = [values[i:i + CHUNK] for i in range(0, samples, CHUNK)]
+    # pieces of work: the draws are fixed already, so their size changes nothing but the balance of the work
+    size = SLOW_PIECE if model.slow else CHUNK
+    pieces = [values[i:i + size] for i in range(0, samples, size)]
     if executor is None:
         results = []
         for piece in pieces:
@@ -862,8 +1015,11 @@ def study(template: Template, tolerances, samples: int, seed: int, executor=None
             if progress is not None:
                 progress(len(piece))
     else:
-        shared = executor.scatter(model, broadcast=True) if hasattr(executor, "scatter") else model
-        futures = {executor.submit(_chunk, shared, piece): i for i, piece in enumerate(pieces)}
+        if isinstance(executor, ModelPool):
+            futures = {executor.submit(_installed_chunk, piece): i for i, piece in enumerate(pieces)}
+        else:
+            shared = executor.scatter(model, broadcast=True) if hasattr(executor, "scatter") else model
+            futures = {executor.submit(_chunk, shared, piece): i for i, piece in enumerate(pieces)}
         results = [None] * len(pieces)
         try:
             for future in _completed(executor, futures):
