@@ -16,8 +16,8 @@ amplitude, and a sample only recomputes the amplitudes: a source's levels at
 its harmonics (they depend on its own keys) and each path's gain at the
 points (it depends on the path's keys and, for an escape path, the rail's).
 Each of these terms that one tolerance alone changes is tabulated over the
-tolerance's range, with nodes added until linear interpolation is within
-1e-4 (0.001 dB) at every midpoint; a term that several tolerances change
+tolerance's range, intervals halved until log-log interpolation is within
+5e-4 (0.004 dB) at every midpoint; a term that several tolerances change
 together (the rise and the fall time of one clock) is computed for each
 sample on the sample's board.
 
@@ -25,15 +25,19 @@ sample on the sample's board.
 lines.  That source is built and read again for each sample (its tuning
 points, the search for each row's maximum), with the other sources' lines
 near its bands at the sample's amplitudes; its lines are also read at the
-other rows' points.  A tolerance that moves the analysed span itself (the
+other rows' points where they can matter (within the receiver's reach of its
+lines, down to their spectral tails, and above 3 % of the row's least
+maximum: every fourth point, then around the contenders for the row's
+maximum).  A tolerance that moves the analysed span itself (the
 highest frequency under a standard's upper-frequency rule) makes every sample
 a full estimate.
 
-Row maxima are taken at the nominal best points (and at every point of a row
-another source reaches); a sample whose amplitudes tilt across a spread
-row's band could peak between them, by far less than 0.01 dB for the
-smooth gains of the models (the tests compare against full estimates of the
-same samples).
+Row maxima are taken at the nominal best points and, where another source
+shares a row's band, at the points of an RBW/32 grid that hold the maximum
+for some pilot draw; a sample whose amplitudes tilt across the band beyond
+the pilot's could peak elsewhere, by far less than 0.01 dB for the smooth
+gains of the models (the tests compare against full estimates of the same
+samples).
 
 References
 ----------
@@ -81,7 +85,9 @@ SHARED = 1e-2
 #: A moving source that reads less than this share of a fast row's least maximum at a point (bounded with a
 #: safety factor) is not read there: it would add at most 10 log10(1 + 0.03^2) = 0.004 dB.
 MOVED_SHARE = 0.03
-#: A coarse point this close to its row's best (dB) may neighbour the row's maximum (see ``Model._contenders``).
+#: A moving source is read first at every STRIDE-th point of a row; a coarse point this close to its row's best
+#: (dB) may neighbour the row's maximum (see ``Model._contenders``).
+STRIDE = 4
 CONTENDER_DB = 0.3
 #: Lines of a moving source below this share of its largest line (-120 dB) reach nothing that matters.
 TAIL = 1e-6
@@ -248,7 +254,7 @@ class Model:
     def _setup(self, stage) -> None:
         board, parts, read = stage.board, stage.parts, stage.read
         detectors, moved = self.detectors, self.moved
-        swept = self._swept_bands() if moved else np.empty((0, 2))
+        swept, tuned = self._swept_bands() if moved else (np.empty((0, 2)), np.empty((0, 2)))
         fast = [k for k in range(len(parts)) if k not in moved]
         # each fast source's amplitude terms, tabulated over the tolerances
         self.fast = []
@@ -283,7 +289,7 @@ class Model:
         if moved:  # the fast sources' lines where a moving source reads, per unit of their harmonic's amplitude
             for f in self.fast:
                 unit, owner = parts[f.k].unit, parts[f.k].line_owner
-                keep = self._inside(unit.line_hz, swept)
+                keep = self._inside(unit.line_hz, tuned)
                 at = f.nominal[owner[keep]]
                 with np.errstate(invalid="ignore", divide="ignore"):
                     per_unit = np.where(at > 0, parts[f.k].lines.line_amplitude[keep] / at, unit.line_amplitude[keep])
@@ -291,7 +297,7 @@ class Model:
             near = self._inside(self.point_hz, swept)
             floor = self._row_floor(read, pilot)
             self.moved_points = {k: self._significant(k, near, floor) for k in moved}
-            self.moved_coarse = {k: _every_fourth(self.point_row[p]) for k, p in self.moved_points.items()}
+            self.moved_coarse = {k: _coarse_positions(self.point_row[p]) for k, p in self.moved_points.items()}
 
     def _row_floor(self, read, pilot: dict) -> dict[str, np.ndarray]:
         """Each fast row's least maximum over the samples, per detector: its own source's nominal reading at
@@ -513,30 +519,25 @@ class Model:
         return [{self.tolerances[j].key: v for j, v in zip(movers, values)}
                 for values in itertools.islice(itertools.product(*axes), 64)]
 
-    def _swept_bands(self) -> np.ndarray:
-        """Sorted, merged frequency ranges the moving sources' lines can reach over their tolerances: within the
-        receiver's reach of every line above :data:`TAIL` of the source's largest (a spread line spectrum has
-        tails beyond its occupied band that a weak neighbour can notice)."""
+    def _swept_bands(self) -> tuple[np.ndarray, np.ndarray]:
+        """Sorted, merged frequency ranges of the moving sources over their tolerances: where their lines reach
+        (within the receiver's reach of every line above :data:`TAIL` of the source's largest: a spread line
+        spectrum has tails beyond its occupied band that a weak neighbour can notice), and where the lines that
+        their own rows' tuning points read lie (the bands and the receiver's reach)."""
         lo, hi = self.span_hz
-        starts, ends = [], []
+        reached, tuned = [], []
         for k in self.moved:
             for setting in self._mover_settings(k, 5):
                 variant = self.template.board_at(setting)
-                lines = _source_part(variant, variant.sources[k], lo, hi).lines
-                amplitude = np.abs(lines.line_amplitude)
-                f = lines.line_hz[amplitude >= TAIL * amplitude.max(initial=0.0)]
+                part = _source_part(variant, variant.sources[k], lo, hi)
+                amplitude = np.abs(part.lines.line_amplitude)
+                f = part.lines.line_hz[amplitude >= TAIL * amplitude.max(initial=0.0)]
                 reach = 1.5 * REACH_RBW * resolution_bandwidth_hz(f)
-                starts.append(f - reach)
-                ends.append(f + reach)
-        if not starts:
-            return np.empty((0, 2))
-        a, b = np.concatenate(starts), np.concatenate(ends)
-        order = np.argsort(a)
-        a, b = a[order], np.maximum.accumulate(b[order])
-        new = np.concatenate([[True], a[1:] > b[:-1]])  # a gap before this range: a new merged range
-        first = np.flatnonzero(new)
-        last = np.concatenate([first[1:] - 1, [a.size - 1]])
-        return np.stack([a[first], b[last]], axis=1)
+                reached.append((f - reach, f + reach))
+                tuning = tuning_of(part)
+                reach = 1.5 * REACH_RBW * tuning["rbw_hz"]
+                tuned.append((tuning["lo_hz"] - reach, tuning["hi_hz"] + reach))
+        return _merged(reached), _merged(tuned)
 
     @staticmethod
     def _inside(x: np.ndarray, swept: np.ndarray) -> np.ndarray:
@@ -682,8 +683,8 @@ class Model:
         """A sample's moving sources: their rows read again, and their lines read at the fast rows' points.
 
         With the sample's ``power`` at the points (sources adding in power), the moving lines' power is added to
-        it in place, read at every fourth of a row's points first and then only between those that may hold
-        the row's maximum (:meth:`_contenders`); otherwise their reading at every point is returned."""
+        it in place, read at every :data:`STRIDE`-th of a row's points first and then only between those that
+        may hold the row's maximum (:meth:`_contenders`); otherwise their reading at every point is returned."""
         lo, hi = self.span_hz
         parts = [_source_part(board, board.sources[k], lo, hi) for k in self.moved]
         lines, tunings = [p.lines for p in parts], [tuning_of(p) for p in parts]
@@ -722,10 +723,10 @@ class Model:
         return dict(rows=rows, at_points=at_points)
 
     def _contenders(self, k: int, power: dict) -> np.ndarray:
-        """Positions (in ``moved_points[k]``) between the coarse points that may hold a row's maximum: the three
-        either side of every coarse point that is a local maximum within :data:`CONTENDER_DB` of its row's
-        coarse best, per detector.  A peak between coarse points (RBW/8 apart) reads at most
-        6.02 (1/16)^2 = 0.024 dB lower at the nearest of them."""
+        """Positions (in ``moved_points[k]``) between the coarse points that may hold a row's maximum: those up to
+        the next coarse point either side of every coarse point that is a local maximum within
+        :data:`CONTENDER_DB` of its row's coarse best, per detector.  A peak between coarse points (RBW/8 apart
+        on a row's RBW/32 grid) reads at most 6.02 (1/16)^2 = 0.024 dB lower at the nearest of them."""
         near, positions = self.moved_points[k], self.moved_coarse[k]
         rows = self.point_row[near[positions]]
         same_prev = np.concatenate([[False], rows[1:] == rows[:-1]])
@@ -740,7 +741,8 @@ class Model:
             best = np.repeat(np.maximum.reduceat(value, starts), lengths) if rows.size else value
             picked |= (value > 0) & (value >= prev) & (value >= nxt) & (value >= best * 10 ** (-CONTENDER_DB / 10))
         centre = positions[picked]
-        around = centre[:, None] + np.array([-3, -2, -1, 1, 2, 3])
+        steps = np.arange(1, STRIDE)
+        around = centre[:, None] + np.concatenate([-steps, steps])
         inside = (around >= 0) & (around < near.size)
         around = np.where(inside, around, centre[:, None])
         row = self.point_row[near]
@@ -750,11 +752,23 @@ class Model:
         return np.unique(around[keep])
 
 
-def _every_fourth(rows: np.ndarray) -> np.ndarray:
-    """Positions of every fourth point of each row (and its last), ``rows`` sorted."""
+def _merged(ranges: list[tuple[np.ndarray, np.ndarray]]) -> np.ndarray:
+    """The union of ranges (pairs of start and end arrays) as sorted, disjoint [start, end] rows."""
+    if not ranges:
+        return np.empty((0, 2))
+    a, b = np.concatenate([r[0] for r in ranges]), np.concatenate([r[1] for r in ranges])
+    order = np.argsort(a)
+    a, b = a[order], np.maximum.accumulate(b[order])
+    first = np.flatnonzero(np.concatenate([[True], a[1:] > b[:-1]]))  # a gap before: a new range
+    last = np.concatenate([first[1:] - 1, [a.size - 1]])
+    return np.stack([a[first], b[last]], axis=1)
+
+
+def _coarse_positions(rows: np.ndarray) -> np.ndarray:
+    """Positions of every :data:`STRIDE`-th point of each row (and its last), ``rows`` sorted."""
     starts = _starts(rows)
     rank = np.arange(rows.size) - np.repeat(starts, np.diff(np.append(starts, rows.size)))
-    keep = rank % 4 == 0
+    keep = rank % STRIDE == 0
     keep[np.append(starts[1:] - 1, rows.size - 1) if rows.size else []] = True
     return np.flatnonzero(keep)
 

@@ -164,7 +164,7 @@ def _compare_fast_and_full(template, samples: int, seed: int):
 
 def test_the_fast_path_equals_full_estimates_of_the_same_samples(write_board):
     # Source: emispec's own full estimate of each sample's board, the reference the fast path must reproduce
-    # (the issue's acceptance: within 0.01 dB).  The demo has a spread clock, a shared reference, a rail with an
+    # (what the fast path promises: within 0.01 dB).  The demo has a spread clock, a shared reference, a rail with an
     # escape path and a group; the fall time makes a term that two tolerances change together.
     text = DEMO.read_text(encoding="utf-8") + """
 [[tolerance]]

@@ -1,10 +1,13 @@
-"""Benchmark (not collected by pytest): python tests/perf/bench.py
+"""Benchmark (not collected by pytest): python tests/perf/bench.py [--risk-only]
 
 Goals on the 2-core reference machine:
 - 10^6 trapezoid harmonics in under 50 ms;
 - an 8-clock board (3 spread) to 6 GHz, harmonics and swept PK/QP/AV readings, in under 2 s and 500 MB;
 - emispec's swept receiver at least 50x faster than the brute-force time-domain receiver of the tests, at 0.3 dB;
-- how the receiver's time grows with harmonics and tuning points.
+- how the receiver's time grows with harmonics and tuning points;
+- tolerance studies of the 8-clock board: 10^4 samples with 8 amplitude-type tolerances in under 10 s, 10^3
+  samples with a tolerance on one clock's spread deviation in under 60 s, each under 1 GB, in-process (or on this
+  machine's process pool) and on a local Dask cluster of 2 workers.
 """
 
 from __future__ import annotations
@@ -188,13 +191,137 @@ def startup_benchmark() -> None:
             print(f"start-up: {label}: best {best:.2f} s {goal(best, limit, 's')}")
 
 
+AMPLITUDE_TOLERANCES = """
+[[tolerance]]
+key = "clock[clk0].rise_time"
+distribution = "uniform"
+low = "2.1 ns"
+high = "3.5 ns"
+
+[[tolerance]]
+key = "clock[clk2].rise_time"
+distribution = "normal"
+sigma = "15 %"
+
+[[tolerance]]
+key = "clock[clk3].swing"
+distribution = "normal"
+sigma = "5 %"
+
+[[tolerance]]
+key = "clock[clk5].rise_time"
+distribution = "triangular"
+low = "0.7 ns"
+high = "1.3 ns"
+
+[[tolerance]]
+key = "clock[clk6].rise_time"
+distribution = "lognormal"
+sigma = "20 %"
+
+[[tolerance]]
+key = "clock[clk7].duty_cycle"
+distribution = "uniform"
+low = 0.48
+high = 0.56
+
+[[tolerance]]
+key = "path[cable].ratio"
+distribution = "normal"
+sigma = "6 dB"
+
+[[tolerance]]
+key = "path[loop].area"
+distribution = "uniform"
+low = "0.3 cm2"
+high = "0.8 cm2"
+"""
+
+SPREAD_TOLERANCE = """
+[[tolerance]]
+key = "clock[{clock}].spread.deviation"
+distribution = "uniform"
+low = "{low} %"
+high = "{high} %"
+"""
+
+
+def _risk_child(board: str, samples: int, where: str) -> None:
+    """One study in this (fresh) process; prints a JSON line with its times and peak memory."""
+    import json
+
+    from emispec.ensemble import dask_client
+    from emispec.parameters import Template
+    from emispec.risk import Model, ModelPool, study
+    from emispec.tolerances import read_tolerances
+
+    start = time.perf_counter()
+    template = Template.load(board)
+    tolerances = read_tolerances(template)
+    model = Model(template, tolerances)
+    built = time.perf_counter()
+    if where == "dask":
+        with dask_client(workers=2) as client:
+            result = study(template, tolerances, samples, 1, executor=client, model=model)
+    elif model.slow:
+        with ModelPool(model) as pool:
+            result = study(template, tolerances, samples, 1, executor=pool, model=model)
+    else:
+        result = study(template, tolerances, samples, 1, model=model)
+    done = time.perf_counter()
+    rss = [resource.getrusage(who).ru_maxrss / 1024 for who in (resource.RUSAGE_SELF, resource.RUSAGE_CHILDREN)]
+    print(json.dumps({"model_s": built - start, "total_s": done - start, "p_fail": result.summary()["p_fail"],
+                      "rss_mb": max(rss)}))
+
+
+def _risk_run(board: Path, samples: int, where: str) -> dict:
+    import json
+
+    out = subprocess.run([sys.executable, __file__, "--risk-child", str(board), str(samples), where],
+                         capture_output=True, text=True, check=True)
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def risk_benchmark() -> None:
+    """Tolerance studies: amplitude-type tolerances and a spread deviation, here and on a local Dask cluster."""
+    with tempfile.TemporaryDirectory() as tmp:
+        board = write_board(tmp)
+        text = board.read_text(encoding="utf-8")
+        amplitude = Path(tmp) / "amplitude.toml"
+        amplitude.write_text(text + AMPLITUDE_TOLERANCES, encoding="utf-8")
+        for where in ("here", "dask"):
+            r = _risk_run(amplitude, 10_000, where)
+            label = "in-process" if where == "here" else "local Dask cluster, 2 workers"
+            print(f"risk, 10^4 samples, 8 amplitude tolerances ({label}): {r['total_s']:.1f} s (model "
+                  f"{r['model_s']:.1f} s), peak {r['rss_mb']:.0f} MB {goal(r['total_s'], 10, 's')} "
+                  f"{goal(r['rss_mb'], 1000, 'MB')}")
+        spread = {"clk7": ("1.2 GHz, 5 harmonics", 0.15, 0.35), "clk6": ("100 MHz, 60 harmonics", 0.3, 0.7),
+                  "clk2": ("24 MHz, 250 harmonics", 0.3, 0.7)}
+        for clock, (what, low, high) in spread.items():
+            path = Path(tmp) / f"spread-{clock}.toml"
+            path.write_text(text + SPREAD_TOLERANCE.format(clock=clock, low=low, high=high), encoding="utf-8")
+            for where in ("here", "dask") if clock == "clk6" else ("here",):
+                r = _risk_run(path, 1000, where)
+                label = "process pool, 2 workers" if where == "here" else "local Dask cluster, 2 workers"
+                print(f"risk, 10^3 samples, {clock} ({what}) spread deviation {low}-{high} % ({label}): "
+                      f"{r['total_s']:.1f} s (model {r['model_s']:.1f} s), peak {r['rss_mb']:.0f} MB "
+                      f"{goal(r['total_s'], 60, 's')} {goal(r['rss_mb'], 1000, 'MB')}")
+
+
 def main() -> None:
+    if sys.argv[1:2] == ["--risk-child"]:
+        _risk_child(sys.argv[2], int(sys.argv[3]), sys.argv[4])
+        return
+    if sys.argv[1:2] == ["--risk-only"]:
+        risk_benchmark()
+        return
     startup_benchmark()
     harmonics_benchmark()
     board_benchmark()
     brute_force_ratio()
     rail_benchmark()
     variants_benchmark()
+    risk_benchmark()
     print("receiver time against harmonics and tuning points (PK, QP, AV):")
     scaling()
     print(f"python {sys.version.split()[0]}, numpy {np.__version__}")
