@@ -504,7 +504,7 @@ def check_budget(board: Board, budget: float = 1.0) -> None:
         if total <= allowed:
             continue
         worst = max(items, key=lambda w: w[what])
-        source, (lo, hi) = worst["source"], worst["span_hz"]
+        source, hi = worst["source"], worst["span_hz"][1]
         if what == "harmonics":
             key, value = f"{worst['key']}.frequency", format_quantity(source.frequency_hz, "Hz")
             hint = (f"{value} gives {worst['harmonics']:.3g} harmonics up to {format_quantity(hi, 'Hz')}"

@@ -3,15 +3,17 @@
 Each row (one harmonic of one source) is read at tuning frequencies in its
 occupied band.  An unmodulated harmonic is tuned onto exactly.  A spread
 harmonic is read on a grid of half a resolution bandwidth across its band plus
-half a bandwidth either side; then halfway between every two neighbouring
-grid points of which one reads within 1.5 dB of the row's best (between two
-grid points a peak can hide at most 1.5 dB: a CW line half an RBW off the
-Gaussian filter's centre reads 6.02 (1/2)^2 = 1.5 dB low, and on a slope it
-need not show as a local maximum of the grid); then, per detector, a compass
-search with steps of RBW/8, /16 and /32 around the row's best point and every
-local maximum within 0.2 dB of it (on the quarter-RBW grid a peak reads at
-most 6.02 (1/8)^2 = 0.094 dB low, so any of them may be the true maximum;
-where several sources share a band a row has several).  After the last step
+half a bandwidth either side; then halfway between two neighbouring grid points
+where one of them reads within 1.5 dB of the row's best (between two grid
+points a peak can hide at most 1.5 dB: a CW line half an RBW off the Gaussian
+filter's centre reads 6.02 (1/2)^2 = 1.5 dB low): beside every such local
+maximum of the grid, and, in a band that another source shares (it reads at
+least 3 % of the row's reading somewhere), between every such pair, since
+there another source's narrow peak on a slope need not show as a local
+maximum.  Then, per detector, a compass search with steps of RBW/8, /16 and
+/32 around the row's best point and, in a shared band, every local maximum
+within 0.2 dB of it (on the quarter-RBW grid a peak reads at most
+6.02 (1/8)^2 = 0.094 dB low, so any of them may be the true maximum).  After the last step
 the best point lies within RBW/32 of a local maximum, where a reading shaped
 like the filter falls by at most 6.02 (2/32)^2 = 0.023 dB: the row reads
 within 0.05 dB of the continuous maximum (the tests show it against a dense
@@ -32,6 +34,10 @@ from .receiver import sweep
 
 __all__ = ["RowReadings", "read_rows", "combine", "row_max", "row_best"]
 
+#: Another source reading this share of a row's reading (-30 dB) at one of its points makes the band shared.
+#: Below it, a peak of that source hidden between grid points (1.5 dB higher than at them) would move the row's
+#: reading by at most 10 log10((1 + 0.036^2) / (1 + 0.03^2)) = 0.002 dB.
+SHARED_SHARE = 0.03
 #: Compass-search steps after the first refinement, as fractions of the RBW.
 SEARCH_STEPS = (1 / 8, 1 / 16, 1 / 32)
 
@@ -53,6 +59,23 @@ class RowReadings:
     searched: bool
     per_source: list[dict[str, np.ndarray]]
     combined: dict[str, np.ndarray]
+    own: int = 0  # which of ``per_source`` is the rows' own source
+
+    def shared(self) -> np.ndarray:
+        """Rows where another source reads at least :data:`SHARED_SHARE` of the combined reading at some point."""
+        out = np.zeros(self.count, bool)
+        for d, combined in self.combined.items():
+            total = np.nan_to_num(combined)
+            for s, reading in enumerate(self.per_source):
+                if s != self.own:
+                    hit = (np.nan_to_num(reading[d]) >= SHARED_SHARE * total) & (total > 0)
+                    out[self.owner[hit]] = True
+        return out
+
+    def best_index(self, value: np.ndarray) -> np.ndarray:
+        """Index of each row's point with the largest ``value`` (rows with nothing read left out)."""
+        _, index = row_best(value, self.owner, self.count)
+        return index[index >= 0]
 
     def best(self, detector: str) -> tuple[np.ndarray, np.ndarray]:
         """Each row's largest combined reading and the index of its tuning point (-1 where nothing is read)."""
@@ -126,18 +149,23 @@ def _peaks(rows: RowReadings, value: np.ndarray, limit_db: float) -> np.ndarray:
 
 
 def _local_maxima(rows: RowReadings, limit_db: float = 1.5) -> tuple[np.ndarray, np.ndarray]:
-    """The midpoint of every pair of neighbouring grid points of which one reads within ``limit_db`` of the
-    row's best (per detector): a peak between two grid points can read up to 1.5 dB low at both, even where
-    the grid shows no local maximum (a narrow peak on a slope)."""
+    """Midpoints of pairs of neighbouring grid points of which one reads within ``limit_db`` of the row's best
+    (per detector): either side of each such local maximum of the grid, and in a shared band between every
+    such pair (a peak between two grid points can read up to 1.5 dB low at both, and another source's narrow
+    peak on a slope need not show as a local maximum)."""
     order = np.lexsort((rows.points, rows.owner))
     owner, points = rows.owner[order], rows.points[order]
     pair = owner[1:] == owner[:-1]
+    shared = rows.shared()[owner[1:]]
     wanted = np.zeros(pair.shape, bool)
     for value in rows.combined.values():  # each detector may peak elsewhere
         v = np.nan_to_num(value[order])
         best = np.nan_to_num(row_max(v, owner, rows.count))
         high = (v > 0) & (v >= best[owner] * 10 ** (-limit_db / 20))
-        wanted |= pair & (high[1:] | high[:-1])
+        prev = np.concatenate([[-np.inf], np.where(pair, v[:-1], -np.inf)])
+        nxt = np.concatenate([np.where(pair, v[1:], -np.inf), [-np.inf]])
+        peak = high & (v >= prev) & (v >= nxt)
+        wanted |= pair & np.where(shared, high[1:] | high[:-1], peak[1:] | peak[:-1])
     return _inside(rows, 0.5 * (points[1:] + points[:-1])[wanted], owner[1:][wanted])
 
 
@@ -150,8 +178,11 @@ def _around_best(rows: RowReadings, step: float) -> tuple[np.ndarray, np.ndarray
     """Points ``step`` RBW either side of each row's best point and of every local maximum within
     :data:`CONTENDER_DB` of it, per detector (where sources share a band a row can have several)."""
     points, owners = [], []
+    shared = rows.shared()
     for value in rows.combined.values():
         found = _peaks(rows, value, CONTENDER_DB)
+        best = rows.best_index(value)
+        found = found[shared[rows.owner[found]] | np.isin(found, best)]  # alone in its band: the best only
         centre, row = rows.points[found], rows.owner[found]
         delta = rows.rbw_hz[row] * step
         points += [centre - delta, centre + delta]
@@ -190,7 +221,7 @@ def read_rows(lines, references, tunings, detectors, progress=None) -> list[RowR
         Called with no argument after each pass (at most :data:`PASSES`).
     """
     rows = [RowReadings(len(t["lo_hz"]), t["points"], t["owner"], t["lo_hz"], t["hi_hz"], t["rbw_hz"], t["searched"],
-                 [], {}) for t in tunings]
+                        [], {}, k) for k, t in enumerate(tunings)]
     for part, (per_source, combined) in zip(rows, _read_all(lines, references, [(r.points, r.owner) for r in rows],
                                                             detectors)):
         part.per_source, part.combined = per_source, combined

@@ -1,7 +1,6 @@
 """Frequency-level traces: interpolation linear in dB over log f, steps, and what lies beyond the ends."""
 
 import numpy as np
-import pytest
 
 from emispec.trace import Trace, interp_log_f
 
