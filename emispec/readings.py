@@ -7,12 +7,12 @@ half a bandwidth either side; then halfway between two neighbouring grid points
 where one of them reads within 1.5 dB of the row's best (between two grid
 points a peak can hide at most 1.5 dB: a CW line half an RBW off the Gaussian
 filter's centre reads 6.02 (1/2)^2 = 1.5 dB low): beside every such local
-maximum of the grid, and, in a band that another source shares (it reads at
-least 3 % of the row's reading somewhere), between every such pair, since
-there another source's narrow peak on a slope need not show as a local
-maximum.  Then, per detector, a compass search with steps of RBW/8, /16 and
-/32 around the row's best point and, in a shared band, every local maximum
-within 0.2 dB of it (on the quarter-RBW grid a peak reads at most
+maximum of the grid, and between every such pair where another source reads
+at least 2 % of the reading at one of the two points, since there another
+source's narrow peak on a slope need not show as a local maximum.  Then, per
+detector, a compass search with steps of RBW/8, /16 and /32 around the row's
+best point and every local maximum within 0.2 dB of it where another source
+reads too (on the quarter-RBW grid a peak reads at most
 6.02 (1/8)^2 = 0.094 dB low, so any of them may be the true maximum).  After the last step
 the best point lies within RBW/32 of a local maximum, where a reading shaped
 like the filter falls by at most 6.02 (2/32)^2 = 0.023 dB: the row reads
@@ -34,10 +34,10 @@ from .receiver import sweep
 
 __all__ = ["RowReadings", "read_rows", "combine", "row_max", "row_best"]
 
-#: Another source reading this share of a row's reading (-30 dB) at one of its points makes the band shared.
-#: Below it, a peak of that source hidden between grid points (1.5 dB higher than at them) would move the row's
-#: reading by at most 10 log10((1 + 0.036^2) / (1 + 0.03^2)) = 0.002 dB.
-SHARED_SHARE = 0.03
+#: Another source reading this share of the combined reading at a point (-34 dB) shares it.  A peak of that
+#: source hidden between two points that neither shares (1.5 dB higher than at them) would move the row's
+#: reading by at most 10 log10((1 + 0.024^2) / (1 + 0.02^2)) = 0.001 dB.
+SHARED_SHARE = 0.02
 #: Compass-search steps after the first refinement, as fractions of the RBW.
 SEARCH_STEPS = (1 / 8, 1 / 16, 1 / 32)
 
@@ -62,14 +62,13 @@ class RowReadings:
     own: int = 0  # which of ``per_source`` is the rows' own source
 
     def shared(self) -> np.ndarray:
-        """Rows where another source reads at least :data:`SHARED_SHARE` of the combined reading at some point."""
-        out = np.zeros(self.count, bool)
+        """Points where another source reads at least :data:`SHARED_SHARE` of the combined reading."""
+        out = np.zeros(self.points.size, bool)
         for d, combined in self.combined.items():
             total = np.nan_to_num(combined)
             for s, reading in enumerate(self.per_source):
                 if s != self.own:
-                    hit = (np.nan_to_num(reading[d]) >= SHARED_SHARE * total) & (total > 0)
-                    out[self.owner[hit]] = True
+                    out |= (np.nan_to_num(reading[d]) >= SHARED_SHARE * total) & (total > 0)
         return out
 
     def best_index(self, value: np.ndarray) -> np.ndarray:
@@ -150,13 +149,14 @@ def _peaks(rows: RowReadings, value: np.ndarray, limit_db: float) -> np.ndarray:
 
 def _local_maxima(rows: RowReadings, limit_db: float = 1.5) -> tuple[np.ndarray, np.ndarray]:
     """Midpoints of pairs of neighbouring grid points of which one reads within ``limit_db`` of the row's best
-    (per detector): either side of each such local maximum of the grid, and in a shared band between every
-    such pair (a peak between two grid points can read up to 1.5 dB low at both, and another source's narrow
-    peak on a slope need not show as a local maximum)."""
+    (per detector): either side of each such local maximum of the grid, and between every such pair that
+    another source shares (a peak between two grid points can read up to 1.5 dB low at both, and another
+    source's narrow peak on a slope need not show as a local maximum)."""
     order = np.lexsort((rows.points, rows.owner))
     owner, points = rows.owner[order], rows.points[order]
     pair = owner[1:] == owner[:-1]
-    shared = rows.shared()[owner[1:]]
+    shared = rows.shared()[order]
+    shared = shared[1:] | shared[:-1]
     wanted = np.zeros(pair.shape, bool)
     for value in rows.combined.values():  # each detector may peak elsewhere
         v = np.nan_to_num(value[order])
@@ -182,7 +182,7 @@ def _around_best(rows: RowReadings, step: float) -> tuple[np.ndarray, np.ndarray
     for value in rows.combined.values():
         found = _peaks(rows, value, CONTENDER_DB)
         best = rows.best_index(value)
-        found = found[shared[rows.owner[found]] | np.isin(found, best)]  # alone in its band: the best only
+        found = found[shared[found] | np.isin(found, best)]  # where the row's source reads alone: the best only
         centre, row = rows.points[found], rows.owner[found]
         delta = rows.rbw_hz[row] * step
         points += [centre - delta, centre + delta]
