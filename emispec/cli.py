@@ -538,6 +538,7 @@ def _study(board: Path, samples: int, seed: int, workers: int | None, scheduler:
 
     from .ensemble import dask_client
     from .parameters import Template
+    from .pipeline import estimate
     from .risk import SLOW_PIECE, Model, ModelPool, study
     from .tolerances import read_tolerances
 
@@ -546,7 +547,8 @@ def _study(board: Path, samples: int, seed: int, workers: int | None, scheduler:
     if not tolerances:
         return None
     model = Model(template, tolerances)
-    rows = len(model.row_keys) if not model.full else 2 * len(_estimate_rows(template))
+    nominal = estimate(template.nominal)
+    rows = len(nominal.rows)
     if samples * rows > MAX_RISK_CELLS * budget:
         raise OptionError(f"--samples {samples}: {samples} samples of {rows} harmonics would hold "
                           f"{samples * rows:.3g} margins; the budget is {MAX_RISK_CELLS * budget:.3g} (use fewer "
@@ -561,13 +563,8 @@ def _study(board: Path, samples: int, seed: int, workers: int | None, scheduler:
             client = None
         with _SlowProgress(f"{samples} samples", delay=0.0) as bar:
             bar.update(0, samples)
-            return study(template, tolerances, samples, seed, executor=client, progress=bar.advance, model=model)
-
-
-def _estimate_rows(template) -> list:
-    from .pipeline import estimate
-
-    return estimate(template.nominal).rows.frequency_hz
+            return study(template, tolerances, samples, seed, executor=client, progress=bar.advance, model=model,
+                         nominal=nominal)
 
 
 def _percent(p: float, ci) -> str:

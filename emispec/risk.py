@@ -1002,7 +1002,7 @@ def _percentiles(x: np.ndarray) -> dict:
 
 
 def study(template: Template, tolerances, samples: int, seed: int, executor=None, progress=None,
-          model: Model | None = None) -> RiskResult:
+          model: Model | None = None, nominal=None) -> RiskResult:
     """Monte Carlo over the tolerances: ``samples`` draws from ``seed``, each sample's margins per row.
 
     Parameters
@@ -1015,6 +1015,10 @@ def study(template: Template, tolerances, samples: int, seed: int, executor=None
         samples read sources again); None runs here.  Results do not depend on it.
     progress : callable, optional
         Called with the number of samples just finished.
+    model : Model, optional
+        The model of these tolerances, if already built.
+    nominal : Estimate, optional
+        The nominal board's estimate, if already made.
     """
     tolerances = tuple(tolerances)
     values = draw(tolerances, samples, seed)
@@ -1046,7 +1050,7 @@ def study(template: Template, tolerances, samples: int, seed: int, executor=None
                 future.cancel()
             raise
     keys, margins = _merge(results)
-    rows = estimate(template.nominal).rows
+    rows = (nominal if nominal is not None else estimate(template.nominal)).rows
     nominal = {rows.key(i): (float(rows.worst_margin_db[i]) if np.isfinite(rows.worst_margin_db[i]) else None,
                              float(rows.frequency_hz[i])) for i in range(len(rows))}
     return RiskResult(template, tolerances, seed, values, tuple(keys), margins, nominal,
