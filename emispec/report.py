@@ -568,7 +568,8 @@ def _html_risk_section(result, rows: int) -> list[str]:
                       f"{driver['key']} ({100 * driver['share']:.0f} %)" if driver else "-"])
     return [
         f"<h2>Tolerances and the chance of failing ({result.samples} samples, seed {result.seed})</h2>",
-        "<ul>", *(f"<li><code>{html.escape(t.key)}</code>: {html.escape(t.text())}</li>" for t in result.tolerances),
+        "<ul>", *(f"<li><code>{html.escape(t.key)}</code>: {html.escape(t.text())}"
+                  + (f" (group {html.escape(t.group)})" if t.group else "") + "</li>" for t in result.tolerances),
         "</ul>",
         f"<p>P(fail): {html.escape(percent_text(s['p_fail'], s['p_fail_ci']))}; P(guard band): "
         f"{html.escape(percent_text(s['p_guard'], s['p_guard_ci']))}.</p>",
