@@ -477,8 +477,16 @@ def work(board: Board) -> list[dict]:
             lines, cells = float(per_harmonic.sum()), float(np.sum(points * fft * weight))
             # a modulation too slow for the detectors' closed forms is stepped in time, sample by sample, for
             # about 25 periods per group of tuning points and 6 reading passes
-            slow = np.array([not repeats_fast(1 / source.spread.rate_hz, BANDS[b]) for b in band_index(f)])
-            steps = float(np.sum(fft[slow & (f <= 1e9)])) * 25 * 6
+            # (a band's tuning points reach past its harmonic by the deviation and an RBW: across a CISPR band
+            # edge, such as 30 MHz at the top of a conducted span, they are read with the next band's detector)
+            top = f * (1 + source.spread.deviation) + rbw
+            rbw_top = resolution_bandwidth_hz(top)
+            slow = np.array([not (repeats_fast(1 / source.spread.rate_hz, BANDS[a])
+                                  and repeats_fast(1 / source.spread.rate_hz, BANDS[b]))
+                             for a, b in zip(band_index(f), band_index(top))])
+            fft_top = np.maximum(32, 4 * np.minimum(per_harmonic, 2 * REACH_RBW * np.maximum(rbw, rbw_top)
+                                                    / source.spread.rate_hz))
+            steps = float(np.sum(fft_top[slow & (f <= 1e9)])) * 25 * 6
         out.append({"source": source, "key": f"{source.section}[{source.name}]", "harmonics": count,
                     "lines": lines, "cells": cells, "steps": steps, "span_hz": (lo, hi)})
     return out
