@@ -49,6 +49,9 @@ class LimitError(InputError):
         self.file, self.key, self.problem = file, key, problem
         super().__init__(f"{file}: {key}: {problem}".replace("\n", " "))
 
+    def __reduce__(self):  # raised in a pool worker, it must reach the command line whole
+        return type(self), (self.file, self.key, self.problem)
+
 
 def limit_line(detector: str, frequency_hz, level_db, unit: str = "dB", origin: str = "") -> Trace:
     """One detector's limit as a :class:`Trace`: NaN outside its span, the lower level at a step."""

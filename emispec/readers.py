@@ -58,6 +58,9 @@ class FileError(InputError):
         self.file, self.where, self.problem = file, where, problem
         super().__init__(f"{file}: {where}: {problem}".replace("\n", " "))
 
+    def __reduce__(self):  # raised in a pool worker, it must reach the command line whole
+        return type(self), (self.file, self.where, self.problem)
+
 
 class TouchstoneError(ValueError):
     """A Touchstone or impedance-table file that cannot be used (the message names the file)."""

@@ -37,6 +37,9 @@ class BoardError(InputError):
         shown = "" if value is None else f" = {_short(value)}"
         super().__init__(one_line(f"{file}: {key}{shown}: {problem}"))
 
+    def __reduce__(self):  # raised in a pool worker, it must reach the command line whole (exit 2, not 1)
+        return type(self), (self.file, self.key, self.problem, self.value)
+
 
 def one_line(text: str) -> str:
     """Control characters (a newline in a name the user wrote) shown escaped, so a message stays one line."""

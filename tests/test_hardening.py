@@ -342,3 +342,12 @@ def test_centimetres_still_read(write_board):
     board = load_board(write_board(replace('area = "1 cm2"', 'area = "2 cm2"')))
     assert board.paths["loop1"].area_m2 == pytest.approx(2e-4)
     assert estimate(board).rows.readings["QP"].size
+
+
+def test_a_variant_refused_in_a_pool_worker_is_a_board_error(runner):
+    # an input error raised in a worker process must come back whole (exit 2, one line), not break the pool
+    result = runner.invoke(app, ["vary", str(DEMO), "--set", "clock[sdram_clk].spread.rate=1 Hz,2 Hz,3 Hz,4 Hz",
+                                 "--workers", "2"])
+    assert result.exit_code == 2, result.output
+    assert "clock[sdram_clk].spread.rate" in result.stderr and "did you mean 1 kHz?" in result.stderr
+    assert "internal error" not in result.output + result.stderr
