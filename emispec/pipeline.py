@@ -471,10 +471,7 @@ def work(board: Board) -> list[dict]:
             points = f * source.spread.deviation / (rbw / 2) + 3
             reach = np.minimum(per_harmonic, 2 * REACH_RBW * rbw / source.spread.rate_hz)
             fft = np.maximum(32, 4 * reach)  # each tuning point takes an FFT about 4x the lines it reaches
-            # where the limit has a QP line the quasi-peak detector roughly triples a cell's cost (measured: a
-            # 0.5 MHz clock spread at 5 kHz, all QP, took 4x as long per cell as the 8-clock benchmark board)
-            weight = np.where((f <= 1e9) & ("QP" in board.limit.detectors), QP_CELL_COST, 1.0)
-            lines, cells = float(per_harmonic.sum()), float(np.sum(points * fft * weight))
+            lines, cells = float(per_harmonic.sum()), float(np.sum(points * fft))
             # a modulation too slow for the detectors' closed forms is stepped in time, sample by sample, for
             # about 25 periods per group of tuning points and 6 reading passes
             # (a band's tuning points reach past its harmonic by the deviation and an RBW: across a CISPR band
@@ -496,8 +493,6 @@ def work(board: Board) -> list[dict]:
 #: and well under 1 GB on a 2-core machine.  ``steps``: detector samples stepped in Python (slow modulation
 #: only; measured: 3e5 of them took 2.5-2.9 s with the outputs).
 BUDGET = {"harmonics": 3e4, "lines": 4e6, "cells": 1e7, "steps": 2.5e5}
-#: A receiver cell's cost where the quasi-peak detector runs, relative to one where it does not.
-QP_CELL_COST = 3.0
 
 
 def check_budget(board: Board, budget: float = 1.0) -> None:

@@ -349,5 +349,5 @@ def test_a_variant_refused_in_a_pool_worker_is_a_board_error(runner):
     result = runner.invoke(app, ["vary", str(DEMO), "--set", "clock[sdram_clk].spread.rate=1 Hz,2 Hz,3 Hz,4 Hz",
                                  "--workers", "2"])
     assert result.exit_code == 2, result.output
-    assert "clock[sdram_clk].spread.rate" in result.stderr and "did you mean 1 kHz?" in result.stderr
+    assert "clock[sdram_clk].spread.rate" in result.stderr and "kHz?" in result.stderr
     assert "internal error" not in result.output + result.stderr
