@@ -509,7 +509,8 @@ def report_command(
     rows: int = typer.Option(20, "--rows", metavar="N", min=1, help="How many of the worst rows the table shows."),
     workers: Optional[int] = WORKERS,
     samples: int = typer.Option(1000, "--samples", metavar="N", min=10, max=1_000_000,
-                                help="Monte Carlo samples for the tolerance section (boards with [[tolerance]])."),
+                                help="Monte Carlo samples for the tolerance section (boards with "
+                                     "\\[\\[tolerance]] entries)."),
     seed: int = typer.Option(1, "--seed", metavar="S", min=0, max=2**63 - 1, help="Seed of those samples."),
     budget: float = BUDGET,
 ) -> None:
@@ -578,9 +579,9 @@ def _percent(p: float, ci) -> str:
 def risk_command(
     board: Path = BOARD,
     samples: int = typer.Option(2000, "--samples", metavar="N", min=10, max=10_000_000,
-                                help="Monte Carlo samples of the tolerances (default 2000)."),
+                                help="Monte Carlo samples of the tolerances."),
     seed: int = typer.Option(1, "--seed", metavar="S", min=0, max=2**63 - 1,
-                             help="Seed of the draws; the same seed gives the same numbers (default 1)."),
+                             help="Seed of the draws; the same seed gives the same numbers."),
     json_path: Optional[str] = typer.Option(None, "--json", metavar="PATH",
                                             help="Write the JSON result to PATH, or '-' for stdout."),
     out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR",
@@ -588,13 +589,13 @@ def risk_command(
     rows: int = typer.Option(10, "--rows", metavar="N", min=1, help="How many harmonics the table shows."),
     workers: Optional[int] = typer.Option(None, "--workers", metavar="N", min=1, max=256,
                                           help="Run on a local Dask cluster of N processes (pip install "
-                                               "'emispec[cluster]')."),
+                                               "'emispec\\[cluster]')."),
     scheduler: Optional[str] = typer.Option(None, "--scheduler", metavar="ADDRESS",
                                             help="Run on the Dask cluster whose scheduler is at ADDRESS "
                                                  "(tcp://HOST:PORT)."),
     budget: float = BUDGET,
 ) -> None:
-    """The chance of failing: Monte Carlo over the board's [[tolerance]] entries, per harmonic and for the board."""
+    """The chance of failing: Monte Carlo over the board's \\[\\[tolerance]] entries, per harmonic and for the board."""
     from .outputs import write_file, write_set
     from .report import risk_files, risk_json_text
 

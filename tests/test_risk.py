@@ -338,3 +338,9 @@ def test_the_report_has_a_risk_section_when_the_board_has_tolerances(runner, tmp
     assert result.exit_code == 0, result.output
     text = page.read_text(encoding="utf-8")
     assert "chance of failing (200 samples" in text and "P(fail)" in text
+
+
+def test_risk_help_shows_the_board_file_and_extra_names(runner):
+    # rich markup would swallow "[[tolerance]]" and "[cluster]" unless they are escaped
+    text = " ".join(runner.invoke(app, ["risk", "--help"], env={"COLUMNS": "200"}).stdout.replace("│", " ").split())
+    assert "[[tolerance]] entries" in text and "pip install 'emispec[cluster]'" in text
