@@ -31,7 +31,7 @@ from .errors import InputError
 from .parameters import Template
 from .pipeline import Estimate, Reuse, estimate
 
-__all__ = ["Ensemble", "EnsembleResult", "evaluate", "process_pool"]
+__all__ = ["Ensemble", "EnsembleResult", "evaluate", "gather", "process_pool", "dask_client"]
 
 
 def _evaluate_chunk(template: Template, members: Sequence[Mapping], si: bool) -> list[Estimate]:
@@ -74,18 +74,25 @@ def evaluate(template: Template, members: Sequence[Mapping], executor=None, prog
     size = chunk or max(1, len(members) // (4 * workers))
     pieces = [members[i:i + size] for i in range(0, len(members), size)]
     futures = {executor.submit(_evaluate_chunk, template, piece, si): k for k, piece in enumerate(pieces)}
-    results: list[list[Estimate] | None] = [None] * len(pieces)
+    results = gather(futures, [len(p) for p in pieces], progress)
+    return [est for piece in results for est in piece]
+
+
+def gather(futures: dict, sizes: list[int], progress=None, completed=concurrent.futures.as_completed) -> list:
+    """The result of each piece of work, in order (``futures`` maps each future to its piece's index), with
+    ``progress(size)`` as each finishes; on any error the others are cancelled."""
+    results: list = [None] * len(sizes)
     try:
-        for future in concurrent.futures.as_completed(futures):
+        for future in completed(futures):
             k = futures[future]
             results[k] = future.result()
             if progress is not None:
-                progress(len(pieces[k]))
+                progress(sizes[k])
     except BaseException:
         for future in futures:
             future.cancel()
         raise
-    return [est for piece in results for est in piece]
+    return results
 
 
 @dataclass(frozen=True)

@@ -478,9 +478,8 @@ def work(board: Board) -> list[dict]:
             # edge, such as 30 MHz at the top of a conducted span, they are read with the next band's detector)
             top = f * (1 + source.spread.deviation) + rbw
             rbw_top = resolution_bandwidth_hz(top)
-            slow = np.array([not (repeats_fast(1 / source.spread.rate_hz, BANDS[a])
-                                  and repeats_fast(1 / source.spread.rate_hz, BANDS[b]))
-                             for a, b in zip(band_index(f), band_index(top))])
+            closed = np.array([repeats_fast(1 / source.spread.rate_hz, band) for band in BANDS])  # per band
+            slow = ~(closed[band_index(f)] & closed[band_index(top)])
             fft_top = np.maximum(32, 4 * np.minimum(per_harmonic, 2 * REACH_RBW * np.maximum(rbw, rbw_top)
                                                     / source.spread.rate_hz))
             steps = float(np.sum(fft_top[slow & (f <= 1e9)])) * 25 * 6

@@ -61,14 +61,16 @@ class RowReadings:
     combined: dict[str, np.ndarray]
     own: int = 0  # which of ``per_source`` is the rows' own source
 
-    def shared(self) -> np.ndarray:
-        """Points where another source reads at least :data:`SHARED_SHARE` of the combined reading."""
+    def shared(self, share: float | None = None) -> np.ndarray:
+        """Points where another source reads at least ``share`` (default :data:`SHARED_SHARE`) of the combined
+        reading, on some detector."""
+        share = SHARED_SHARE if share is None else share
         out = np.zeros(self.points.size, bool)
         for d, combined in self.combined.items():
             total = np.nan_to_num(combined)
             for s, reading in enumerate(self.per_source):
                 if s != self.own:
-                    out |= (np.nan_to_num(reading[d]) >= SHARED_SHARE * total) & (total > 0)
+                    out |= (np.nan_to_num(reading[d]) >= share * total) & (total > 0)
         return out
 
     def best_index(self, value: np.ndarray) -> np.ndarray:

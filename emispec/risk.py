@@ -61,6 +61,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .ensemble import gather
 from .parameters import Template
 from .pipeline import (Reuse, _nearest, _quantities_here, _source_part, _total_gain, analysis_span_hz, estimate,
                        read_board, row_limits, tuning_of)
@@ -458,13 +459,9 @@ class Model:
         reach and rows whose sources add in amplitude (a shared reference) keep every candidate.
         """
         shared = np.zeros(rows.count, bool)
+        shared[rows.owner[rows.shared(SHARED)]] = True
         every = np.zeros(rows.count, bool)
         for d in self.detectors:
-            combined = np.nan_to_num(rows.combined[d])
-            for s, reading in enumerate(rows.per_source):
-                if s != k:
-                    hit = (np.nan_to_num(reading[d]) >= SHARED * combined) & (combined > 0)
-                    shared[rows.owner[hit]] = True
             value, _ = rows.best(d)
             every |= np.isfinite(value) & ~(value > 0)
         if swept.size:  # a moving source may come into the row's band
@@ -1038,28 +1035,19 @@ def study(template: Template, tolerances, samples: int, seed: int, executor=None
         else:
             shared = executor.scatter(model, broadcast=True) if hasattr(executor, "scatter") else model
             futures = {executor.submit(_chunk, shared, piece): i for i, piece in enumerate(pieces)}
-        results = [None] * len(pieces)
-        try:
-            for future in _completed(executor, futures):
-                i = futures[future]
-                results[i] = future.result()
-                if progress is not None:
-                    progress(len(pieces[i]))
-        except BaseException:
-            for future in futures:
-                future.cancel()
-            raise
+        results = gather(futures, [len(p) for p in pieces], progress, _as_completed(executor))
     keys, margins = _merge(results)
     rows = (nominal if nominal is not None else estimate(template.nominal)).rows
-    nominal = {rows.key(i): (float(rows.worst_margin_db[i]) if np.isfinite(rows.worst_margin_db[i]) else None,
-                             float(rows.frequency_hz[i])) for i in range(len(rows))}
-    return RiskResult(template, tolerances, seed, values, tuple(keys), margins, nominal,
+    at_nominal = {rows.key(i): (float(rows.worst_margin_db[i]) if np.isfinite(rows.worst_margin_db[i]) else None,
+                                float(rows.frequency_hz[i])) for i in range(len(rows))}
+    return RiskResult(template, tolerances, seed, values, tuple(keys), margins, at_nominal,
                       template.nominal.guard_band_db)
 
 
-def _completed(executor, futures):
+def _as_completed(executor):
+    """How futures of ``executor`` are waited for: Dask's own ``as_completed`` for a Dask client."""
     if hasattr(executor, "scatter"):
         from distributed import as_completed
 
-        return as_completed(list(futures))
-    return concurrent.futures.as_completed(futures)
+        return lambda futures: as_completed(list(futures))
+    return concurrent.futures.as_completed
