@@ -665,6 +665,74 @@ def _print_risk(result, s: dict, count: int) -> None:
     out.print(f"[dim]{CAUTION}[/]")
 
 
+@app.command("waveform")
+@_guarded
+def waveform_command(
+    capture: Path = typer.Argument(..., metavar="FILE", help="Time-domain capture: CSV/TSV, ngspice wrdata or "
+                                   "ASCII raw.", show_default=False),
+    column: Optional[str] = typer.Option(None, "--column", metavar="NAME",
+                                         help="The voltage column to analyse (needed when there are several)."),
+    bandwidth: Optional[str] = typer.Option(None, "--bandwidth", metavar="FREQ",
+                                            help="Scope or probe bandwidth ('1 GHz'): no harmonic above it counts "
+                                                 "as measured."),
+    json_path: Optional[str] = typer.Option(None, "--json", metavar="PATH",
+                                            help="Write the JSON result to PATH, or '-' for stdout."),
+    out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR",
+                                           help="Write waveform.json, waveform-harmonics.csv, waveform-clock.toml "
+                                                "and waveform.png into DIR."),
+    rows: int = typer.Option(15, "--rows", metavar="N", min=0, help="How many harmonics the table shows (0: all)."),
+) -> None:
+    """What a scope capture or simulator output says: frequency, duty, edges, swing, overshoot, ringing, harmonics."""
+    from .capture import analyse
+    from .outputs import write_file, write_set
+    from .readers import read_capture
+    from .report import clock_snippet, waveform_dict, waveform_files, waveform_json_text
+    from .units import QuantityError, parse_quantity
+
+    try:
+        bandwidth_hz = parse_quantity(bandwidth, "frequency") if bandwidth is not None else None
+    except QuantityError as problem:
+        raise OptionError(f"--bandwidth {bandwidth!r}: {problem}") from None
+    if bandwidth_hz is not None and not bandwidth_hz > 0:
+        raise OptionError(f"--bandwidth {bandwidth!r}: must be > 0 Hz")
+    data = read_capture(capture, column)
+    analysis = analyse(data.time_s, data.voltage_v, data.file, bandwidth_hz)
+    if json_path:
+        write_file(json_path, waveform_json_text(analysis, data.file, data.column))
+    if out_dir is not None:
+        for path in write_set(out_dir, waveform_files(analysis, data.file, data.column)):
+            (err if json_path == "-" else out).print(f"wrote {path}", markup=False)
+    if json_path == "-":
+        return
+    s = waveform_dict(analysis, data.file, data.column)
+    ns = lambda x: f"{x * 1e9:.4g} ns"  # noqa: E731
+    ringing = "none found" if s["ringing_hz"] is None else (
+        f"{s['ringing_hz'] / 1e6:.4g} MHz, damping ratio {s['ringing_damping']:.3g}")
+    for name, value in (
+            ("capture", f"{data.file} ({data.column}), {s['periods']} whole periods, one sample every "
+                        f"{ns(s['sample_interval_s'])}"),
+            ("frequency", f"{s['frequency_hz'] / 1e6:.7g} MHz (fit of every 50 % crossing)"),
+            ("duty cycle", f"{100 * s['duty_cycle']:.2f} %"),
+            ("rise / fall 10-90", f"{ns(s['rise_time_s'])} / {ns(s['fall_time_s'])}"),
+            ("rise / fall 20-80", f"{ns(s['rise_time_2080_s'])} / {ns(s['fall_time_2080_s'])}"),
+            ("swing", f"{s['swing_v']:.4g} V ({s['low_v']:.4g} V to {s['high_v']:.4g} V, histogram levels)"),
+            ("overshoot / undershoot", f"{100 * s['overshoot']:.1f} % / {100 * s['undershoot']:.1f} %"),
+            ("ringing", ringing),
+            ("measured up to", f"harmonic {s['limit_harmonic']} ({s['limit_hz'] / 1e6:.4g} MHz)")):
+        out.print(f"{name:>24}  {value}", markup=False, soft_wrap=True)
+    table = Table(box=box.SIMPLE_HEAD)
+    for head in ("n", "MHz", "capture dBuV", "trapezoid dBuV", "difference dB"):
+        table.add_column(head, justify="right")
+    for h in s["harmonics"][:rows or None]:
+        m, z = h["level_dbuv"], h["trapezoid_dbuv"]
+        table.add_row(str(h["n"]), f"{h['frequency_hz'] / 1e6:.6g}", _fmt(m), _fmt(z),
+                      _fmt(None if m is None or z is None else m - z))
+    out.print(table)
+    out.print("the fitted trapezoid, to paste into a board file:", markup=False)
+    out.print(clock_snippet(analysis), markup=False)
+    out.print(f"[dim]{CAUTION}[/]")
+
+
 def _version(value: bool) -> None:
     if value:
         print(f"emispec {__version__}")

@@ -19,7 +19,7 @@ from .pipeline import Estimate, RailView  # noqa: E402
 from .trace import Trace  # noqa: E402
 
 __all__ = ["PALETTE", "SOURCE_COLORS", "spectrum_figure", "swept_figure", "rail_figure", "variants_figure",
-           "png_bytes", "svg_text"]
+           "waveform_figure", "png_bytes", "svg_text"]
 
 #: emispec's detector palette: colour, limit-line style and reading marker per detector (README, "Plots").
 PALETTE = {
@@ -304,3 +304,27 @@ def svg_text(figure) -> str:
     plt.close(figure)
     text = buffer.getvalue()
     return text[text.index("<svg"):]
+
+
+def waveform_figure(summary: dict):
+    """A capture's harmonics against its fitted trapezoid's (RMS dBuV), from ``emispec.waveform/1``."""
+    rows = summary["harmonics"]
+    f = np.array([h["frequency_hz"] for h in rows]) / 1e6
+    level = np.array([np.nan if h["level_dbuv"] is None else h["level_dbuv"] for h in rows])
+    trapezoid = np.array([np.nan if h["trapezoid_dbuv"] is None else h["trapezoid_dbuv"] for h in rows])
+    fig, ax = plt.subplots(figsize=(8, 4.5), layout="constrained")
+    ax.semilogx(f, trapezoid, "s", mfc="none", color=SOURCE_COLORS[1], label="fitted trapezoid")
+    ax.semilogx(f, level, "o", ms=4, color=SOURCE_COLORS[0], label="capture")
+    if summary["noise_floor_dbuv"] is not None:
+        ax.axhline(summary["noise_floor_dbuv"], color="#999999", ls=":", label="capture's noise floor")
+    if summary["ringing_hz"]:
+        ax.axvline(summary["ringing_hz"] / 1e6, color=SOURCE_COLORS[2], ls="--",
+                   label=f"ringing {summary['ringing_hz'] / 1e6:.4g} MHz")
+    ax.set_xlabel("frequency [MHz]")
+    ax.set_ylabel("harmonic [dBuV, RMS]")
+    ax.set_title(f"{summary['file']} ({summary['column']}): harmonics up to the capture's limit, "
+                 f"{summary['limit_hz'] / 1e6:.4g} MHz", fontsize=9)
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=8)
+    fig.text(0.99, 0.005, CAUTION_SHORT, ha="right", va="bottom", fontsize=7, color="#666666")
+    return fig

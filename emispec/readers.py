@@ -45,6 +45,8 @@ __all__ = [
     "read_two_column_csv",
     "read_touchstone",
     "read_impedance_table",
+    "CaptureData",
+    "read_capture",
 ]
 
 #: Largest file emispec reads (board, limit, table, Touchstone) [bytes].
@@ -279,3 +281,150 @@ class FileCache:
         if key not in self._data:
             self._data[key] = reader(path, *args)
         return self._data[key]
+
+
+@dataclass(frozen=True)
+class CaptureData:
+    """A time-domain record: sample times [s], the chosen column's values [V], its name and the file."""
+
+    time_s: np.ndarray
+    voltage_v: np.ndarray
+    column: str
+    file: str
+
+
+_TIME_UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "μs": 1e-6, "ns": 1e-9, "ps": 1e-12}
+_VOLT_UNITS = {"v": 1.0, "mv": 1e-3, "uv": 1e-6, "µv": 1e-6, "kv": 1e3}
+
+
+def _unit_of(name: str) -> tuple[str, str]:
+    """A column header split into its name and the unit in brackets or parentheses (``Time (ns)``)."""
+    text = name.strip()
+    for opening, closing in (("[", "]"), ("(", ")")):
+        if text.endswith(closing) and opening in text:
+            head, _, unit = text[:-1].rpartition(opening)
+            if head.strip() and unit.strip().lower() in (*_TIME_UNITS, *_VOLT_UNITS):
+                return head.strip(), unit.strip()
+    return text, ""
+
+
+def _split(line: str) -> list[str]:
+    """Cells of a table line: tab, semicolon or comma separated, or whitespace (ngspice ``wrdata``)."""
+    for sep in ("\t", ";", ","):
+        if sep in line:
+            cells = [c.strip() for c in line.split(sep)]
+            if sep != "," and all(c.count(",") <= 1 and "." not in c for c in cells):
+                cells = [c.replace(",", ".") for c in cells]  # decimal comma beside a tab or semicolon
+            return cells
+    return line.split()
+
+
+def _numbers(cells: list[str]) -> list[float] | None:
+    try:
+        values = [float(c) for c in cells]
+    except ValueError:
+        return None
+    return values if len(values) >= 2 else None
+
+
+def _raw_columns(source: TextFile) -> tuple[list[str], np.ndarray]:
+    """Columns of an ngspice ASCII raw file (``set filetype=ascii`` before ``write``)."""
+    lines = source.text.splitlines()
+    names, values_at = [], None
+    for i, line in enumerate(lines):
+        if line.startswith("Binary:"):
+            raise FileError(source.file, f"line {i + 1}", "a binary raw file; write it with 'set filetype=ascii' "
+                            "before 'write', or export a table with 'wrdata'")
+        if line.startswith("Variables:"):
+            j = i + 1
+            while j < len(lines) and lines[j].startswith(("\t", " ")) and len(lines[j].split()) >= 3:
+                names.append(lines[j].split()[1])
+                j += 1
+        if line.startswith("Values:"):
+            values_at = i + 1
+            break
+    if not names or values_at is None:
+        raise FileError(source.file, "raw file", "expected 'Variables:' and 'Values:' sections")
+    tokens = " ".join(lines[values_at:]).split()
+    width = len(names) + 1  # each point starts with its index
+    if len(tokens) % width:
+        raise FileError(source.file, "Values", f"the values do not come in groups of {width} (index + "
+                        f"{len(names)} variables)")
+    try:
+        table = np.array(tokens, dtype=float).reshape(-1, width)[:, 1:]
+    except ValueError:
+        raise FileError(source.file, "Values", "a value is not a number (complex data is not a transient)") from None
+    return names, table
+
+
+def _table_columns(source: TextFile) -> tuple[list[str], np.ndarray]:
+    """Columns of a CSV/TSV/whitespace table: metadata and '#' lines before the header skipped."""
+    rows, header, first = [], None, None
+    previous = None
+    for lineno, line in enumerate(source.text.splitlines(), start=1):
+        if not line.strip() or line.lstrip().startswith(("#", "*", ";")):
+            continue
+        cells = _split(line)
+        values = _numbers(cells)
+        if values is None:
+            if rows:
+                raise FileError(source.file, f"line {lineno}", f"expected {len(rows[0])} numbers, got {line[:40]!r}")
+            previous = cells
+            continue
+        if rows and len(values) != len(rows[0]):
+            raise FileError(source.file, f"line {lineno}", f"expected {len(rows[0])} numbers, got {len(values)}")
+        if first is None:
+            first = lineno
+            header = previous if previous is not None and len(previous) == len(values) else None
+        rows.append(values)
+    if not rows:
+        raise FileError(source.file, "table", "no rows of numbers (time, voltage, ...)")
+    table = np.array(rows)
+    names = header or [f"column {k + 1}" for k in range(table.shape[1])]
+    if header is None and table.shape[1] >= 4 and table.shape[1] % 2 == 0 \
+            and all(np.array_equal(table[:, 0], table[:, k]) for k in range(2, table.shape[1], 2)):
+        names[2::2] = [names[0]] * (table.shape[1] // 2 - 1)  # ngspice wrdata: a time column before each vector
+    return names, table
+
+
+def read_capture(path: str | Path, column: str | None = None, what: str = "capture") -> CaptureData:
+    """A scope capture or simulator output: CSV/TSV (units from the header), ngspice ``wrdata`` or ASCII raw.
+
+    The first column is time (seconds unless the header says ``(ms)``, ``[ns]``...); the others are voltages
+    (volts unless ``(mV)``).  ``column`` picks one by its name; without it the file must have one.  A time
+    column that repeats (ngspice ``wrdata`` writes one before each vector) is dropped.
+    """
+    source = read_text(path, what)
+    if source.text.startswith("Title:"):
+        names, table = _raw_columns(source)
+    else:
+        names, table = _table_columns(source)
+    if table.shape[1] < 2:
+        raise FileError(source.file, what, "needs a time column and at least one voltage column")
+    time_name, time_unit = _unit_of(names[0])
+    time_scale = _TIME_UNITS.get(time_unit.lower(), 1.0)
+    voltages = {}
+    for k in range(1, table.shape[1]):
+        name, unit = _unit_of(names[k])
+        if names[k] == names[0] and np.array_equal(table[:, k], table[:, 0]):
+            continue
+        voltages[names[k]] = (table[:, k] * _VOLT_UNITS.get(unit.lower(), 1.0), name)
+    wanted = None
+    if column is not None:
+        wanted = next((k for k, (_, name) in voltages.items() if column in (k, name)), None)
+        if wanted is None:
+            raise FileError(source.file, "column", f"no column {column!r}; columns: {', '.join(voltages)}")
+    elif len(voltages) == 1:
+        wanted = next(iter(voltages))
+    else:
+        raise FileError(source.file, "column", f"{len(voltages)} voltage columns ({', '.join(voltages)}); "
+                        "name one")
+    time = table[:, 0] * time_scale
+    steps = np.diff(time)
+    if not np.all(steps > 0):
+        bad = int(np.argmax(~(steps > 0))) + 2
+        raise FileError(source.file, f"sample {bad}", "time does not increase (the record must be in time order)")
+    values = voltages[wanted][0]
+    if not np.all(np.isfinite(values)):
+        raise FileError(source.file, wanted, "a value is not finite")
+    return CaptureData(time, values, wanted, source.file)

@@ -577,3 +577,88 @@ def _html_risk_section(result, rows: int) -> list[str]:
         f"<figure>{svg_text(risk_figure(result))}</figure>",
         f"<figure>{svg_text(risk_drivers_figure(result))}</figure>",
     ]
+
+
+def _number_or_none(x):
+    return None if x is None or not math.isfinite(x) else float(x)
+
+
+def waveform_dict(analysis, file: str, column: str) -> dict:
+    """``emispec.waveform/1``: what the capture says, and its harmonics against the fitted trapezoid's (RMS)."""
+    from .units import db_micro
+    from .waveform import harmonic_phasors
+
+    wave = analysis.trapezoid()
+    n = np.arange(1, len(analysis.harmonics) + 1)
+    measured = db_micro(analysis.harmonics / np.sqrt(2))
+    trapezoid = db_micro(harmonic_phasors(wave, n) / np.sqrt(2))
+    shown = n <= max(analysis.limit, 1)
+    return {
+        "schema": "emispec.waveform/1",
+        "file": file,
+        "column": column,
+        "frequency_hz": analysis.frequency_hz,
+        "duty_cycle": analysis.duty,
+        "rise_time_s": analysis.rise_s,
+        "fall_time_s": analysis.fall_s,
+        "rise_time_2080_s": analysis.rise_2080_s,
+        "fall_time_2080_s": analysis.fall_2080_s,
+        "swing_v": analysis.swing_v,
+        "low_v": analysis.low_v,
+        "high_v": analysis.high_v,
+        "overshoot": analysis.overshoot,
+        "undershoot": analysis.undershoot,
+        "ringing_hz": _number_or_none(analysis.ringing_hz),
+        "ringing_damping": _number_or_none(analysis.ringing_damping),
+        "periods": analysis.periods,
+        "sample_interval_s": analysis.sample_interval_s,
+        "limit_harmonic": analysis.limit,
+        "limit_hz": analysis.limit * analysis.frequency_hz,
+        "noise_floor_dbuv": _number_or_none(float(db_micro(analysis.noise_floor_v / np.sqrt(2)))),
+        "harmonics": [{"n": int(k), "frequency_hz": float(k * analysis.frequency_hz),
+                       "level_dbuv": _number_or_none(float(m)), "trapezoid_dbuv": _number_or_none(float(z))}
+                      for k, m, z in zip(n[shown], measured[shown], trapezoid[shown])],
+    }
+
+
+def waveform_json_text(analysis, file: str, column: str) -> str:
+    return json.dumps(waveform_dict(analysis, file, column), indent=1, allow_nan=False) + "\n"
+
+
+def waveform_csv_text(analysis, file: str, column: str) -> str:
+    """Each harmonic up to the capture's limit: its level, the fitted trapezoid's, and the difference (RMS dBuV)."""
+    lines = []
+    for h in waveform_dict(analysis, file, column)["harmonics"]:
+        m, z = h["level_dbuv"], h["trapezoid_dbuv"]
+        lines.append([h["n"], f"{h['frequency_hz'] / 1e6:.6f}", _csv_number(m), _csv_number(z),
+                      _csv_number(None if m is None or z is None else m - z)])
+    return _csv(["harmonic", "frequency_mhz", "level_dbuv", "trapezoid_dbuv", "difference_db"], lines)
+
+
+def clock_snippet(analysis, name: str = "captured_clk") -> str:
+    """The fitted trapezoid as a ``[[clock]]`` table to paste into a board file."""
+    from .units import format_quantity
+
+    return "\n".join([
+        "[[clock]]",
+        f'name = "{name}"',
+        f'frequency = "{format_quantity(analysis.frequency_hz, "Hz", 7)}"',
+        f"duty_cycle = {analysis.duty:.4f}",
+        f'rise_time = "{format_quantity(analysis.rise_s, "s")}"',
+        f'fall_time = "{format_quantity(analysis.fall_s, "s")}"',
+        'edge = "10-90"',
+        f'swing = "{format_quantity(analysis.swing_v, "V")}"',
+        'paths = []  # the paths this clock drives',
+    ]) + "\n"
+
+
+def waveform_files(analysis, file: str, column: str) -> dict:
+    """Every file ``waveform --out`` writes: name -> function giving its contents."""
+    from .plot import png_bytes, waveform_figure
+
+    return {
+        "waveform.json": lambda: waveform_json_text(analysis, file, column),
+        "waveform-harmonics.csv": lambda: waveform_csv_text(analysis, file, column),
+        "waveform-clock.toml": lambda: clock_snippet(analysis),
+        "waveform.png": lambda: png_bytes(waveform_figure(waveform_dict(analysis, file, column))),
+    }
