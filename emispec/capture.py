@@ -35,7 +35,8 @@ import numpy as np
 from .errors import InputError
 from .waveform import Trapezoid
 
-__all__ = ["CaptureError", "Analysis", "analyse", "NYQUIST_FRACTION", "FLOOR_MARGIN_DB"]
+__all__ = ["CaptureError", "Analysis", "analyse", "analyse_file", "neighbourhood_ratio", "NYQUIST_FRACTION",
+           "FLOOR_MARGIN_DB"]
 
 #: Highest harmonic a record is trusted for, as a fraction of its Nyquist frequency.
 NYQUIST_FRACTION = 0.4
@@ -87,6 +88,21 @@ class Analysis:
         room = 2 * min(self.duty, 1 - self.duty) / self.frequency_hz
         scale = min(1.0, room / (rise + fall))  # a near-triangle record: edges shrunk to fit, never widened
         return Trapezoid(self.frequency_hz, self.swing_v, self.duty, rise * scale, fall * scale)
+
+    def limit_within(self, bandwidth_hz: float | None) -> int:
+        """The record's limit when its bandwidth is ``bandwidth_hz`` (None: the record's own rule only)."""
+        return _limit(self.harmonics, self.frequency_hz, self.sample_interval_s, self.noise_floor_v, bandwidth_hz)
+
+
+def _limit(harmonics, frequency_hz, dt, floor_v, bandwidth_hz) -> int:
+    """The last harmonic under the trusted top (a fraction of Nyquist, or ``bandwidth_hz``) that stands
+    :data:`FLOOR_MARGIN_DB` over the noise floor (0 when none does)."""
+    top = NYQUIST_FRACTION * 0.5 / dt
+    if bandwidth_hz is not None:
+        top = min(top, bandwidth_hz)
+    n = np.arange(1, len(harmonics) + 1)
+    clear = np.flatnonzero((n * frequency_hz <= top) & (np.abs(harmonics) >= floor_v * 10 ** (FLOOR_MARGIN_DB / 20)))
+    return int(n[clear[-1]]) if len(clear) else 0
 
 
 def _levels(v: np.ndarray) -> tuple[float, float]:
@@ -267,12 +283,7 @@ def analyse(time_s: np.ndarray, voltage_v: np.ndarray, file: str = "capture",
     residual = float(np.std(resampled - mean)) if periods > 1 else 0.0
     floor = 2 * residual / np.sqrt(window)
     f0 = 1.0 / period
-    top = NYQUIST_FRACTION * 0.5 / dt
-    if bandwidth_hz is not None:
-        top = min(top, bandwidth_hz)
-    trusted = n * f0 <= top
-    clear = np.flatnonzero(trusted & (np.abs(harmonics) >= floor * 10 ** (FLOOR_MARGIN_DB / 20)))
-    limit = int(n[clear[-1]]) if len(clear) else 0
+    limit = _limit(harmonics, f0, dt, floor, bandwidth_hz)
 
     # Overshoot and ringing from the record folded onto one period (the mean of the samples at each phase).
     bins = max(16, int(round(period / dt)))
@@ -310,3 +321,27 @@ def _check_clipping(v, low, high, file):
             raise CaptureError(f"{file}: the signal is clipped at its {where} ({extreme:.4g} V): most samples of "
                                "that state sit at one value; capture it again with more vertical range")
 
+
+
+def analyse_file(path, column: str | None = None) -> Analysis:
+    """Read a capture file (:func:`emispec.readers.read_capture`) and analyse it (its bandwidth:
+    :meth:`Analysis.limit_within`)."""
+    from .readers import read_capture
+
+    data = read_capture(path, column)
+    return analyse(data.time_s, data.voltage_v, data.file)
+
+
+#: Half-width of the neighbourhood an envelope of measured harmonics looks across (a third of an octave).
+ENVELOPE_WINDOW = 2 ** (1 / 3)
+
+
+def neighbourhood_ratio(harmonics: np.ndarray, reference: np.ndarray) -> np.ndarray:
+    """Per harmonic n = 1..len: the largest |c_m| / reference_m over m within a third of an octave of n (and
+    at least n - 1 .. n + 1), so that a measured harmonic in a null reads like its neighbours."""
+    count = len(harmonics)
+    ratio = np.append(np.abs(harmonics) / reference, 0.0)
+    n = np.arange(1, count + 1)
+    lo = np.maximum(1, np.minimum(n - 1, np.floor(n / ENVELOPE_WINDOW))).astype(int)
+    hi = np.minimum(count, np.maximum(n + 1, np.ceil(n * ENVELOPE_WINDOW))).astype(int)
+    return np.maximum.reduceat(ratio, np.column_stack([lo - 1, hi]).ravel())[::2]

@@ -664,6 +664,7 @@ def _source_columns(board: Board, parts: list[_SourcePart], k: int, readings, ow
         reduction = {d: db_micro(plain[d]) - db_micro(own[d]) for d in detectors}
     flags = _path_flags(board, part.source, part.f)
     flags[SPECTRAL_NULL] = ~part.live
+    flags.update(part.source.row_flags(part.n))
     flags.update(overlaps)
     rail = _decoupling_columns(board, parts, k, readings, best, limit, span_hz)
     flags.update(rail.pop("flags"))

@@ -27,18 +27,22 @@ class here (or in its own module) registered in that table.
 from __future__ import annotations
 
 import difflib
-from dataclasses import dataclass, replace
+from pathlib import Path
+from dataclasses import dataclass
 from typing import ClassVar, Protocol
 
 import numpy as np
 
+from .capture import neighbourhood_ratio
+from .flags import declare
 from .schema import Key, TableReader
 from .spread import Spread
 from .waveform import (EDGE_FRACTION, EDGE_SHAPES, Trapezoid, WaveformError, edge_parameter, full_edge_time,
+                       harmonic_phasors,
                        shaped_phasors, spectrum_envelope, supply_current_bound,
                        supply_current_phasors, triangle_pulse_envelope, triangle_pulse_phasors)
 
-__all__ = ["Source", "Clock", "Current", "SOURCE_SECTIONS", "BoardContext", "QUANTITIES", "MODES"]
+__all__ = ["Source", "Clock", "CapturedClock", "Current", "EXTRAPOLATED", "SOURCE_SECTIONS", "BoardContext", "QUANTITIES", "MODES"]
 
 
 @dataclass(frozen=True)
@@ -76,6 +80,8 @@ class Source(Protocol):
 
     def bounds(self, frequency_hz) -> dict[str, np.ndarray]: ...
 
+    def row_flags(self, n: np.ndarray) -> dict[str, np.ndarray]: ...
+
 
 QUANTITIES = ("voltage", "current", "rail")
 MODES = ("envelope", "exact")
@@ -96,6 +102,23 @@ def _path_names(r: TableReader, paths: dict) -> tuple[str, ...]:
     if len(set(names)) != len(names):
         raise r.error("paths", "a path is listed twice", names)
     return tuple(names)
+
+
+def _load(r: TableReader) -> tuple[float | None, float | None]:
+    """A clock's series R + C load; checks that every path that reads the clock current has one."""
+    resistance = capacitance = None
+    if r.has("load"):
+        load = r.reader("load", r.keys["load"].schema)
+        resistance, capacitance = load.get("resistance"), load.get("capacitance")
+        if resistance is None and capacitance is None:
+            raise r.error("load", "give a resistance, a capacitance or both (series R + C)")
+    return resistance, capacitance
+
+
+def _check_load(r: TableReader, ctx: BoardContext, names, resistance, capacitance) -> None:
+    for p in names:
+        if ctx.paths[p].input in ("current", "escape") and resistance is None and capacitance is None:
+            raise r.error("load", f"missing; path {p!r} needs the clock current, which needs a load")
 
 
 def _rail_name(r: TableReader, rails: dict, names, paths, required: bool = False) -> str | None:
@@ -132,15 +155,16 @@ class Clock:
 
     section: ClassVar[str] = "clock"
     KEYS: ClassVar[tuple[Key, ...]] = (
-        _NAME, replace(_FREQUENCY, required=True), _DUTY,
-        Key("rise_time", "time", required=True, low=0.0, high=1.0),
+        _NAME, _FREQUENCY, _DUTY,
+        Key("rise_time", "time", low=0.0, high=1.0),
         Key("fall_time", "time", low=0.0, high=1.0),
         Key("edge", "choice", default="10-90", choices=tuple(EDGE_FRACTION)),
-        Key("swing", "voltage", required=True, low=1e-6, low_open=False, high=1e4),
+        Key("swing", "voltage", low=1e-6, low_open=False, high=1e4),
         Key("load", "table", schema=(Key("resistance", "resistance", low=0.0, high=1e9),
                                      Key("capacitance", "capacitance", low=0.0, high=1.0))),
         _PATHS, _RAIL, _SPREAD, _REFERENCE, _HARMONICS, _COMBINE,
         Key("edge_shape", "choice", default="linear", choices=EDGE_SHAPES),
+        Key("waveform", "text"), Key("column", "text"), Key("bandwidth", "frequency", low=0.0, high=1e12),
     )
 
     name: str
@@ -217,13 +241,21 @@ class Clock:
             return exact
         return _at_bound(exact, self.bounds(np.asarray(n, dtype=float) * self.frequency_hz))
 
+    def row_flags(self, n) -> dict[str, np.ndarray]:
+        return {}
+
     @classmethod
-    def from_table(cls, r: TableReader, ctx: BoardContext) -> Clock:
-        frequency = r.get("frequency")
-        swing = r.get("swing")
+    def from_table(cls, r: TableReader, ctx: BoardContext) -> Clock | CapturedClock:
+        if r.has("waveform"):
+            return CapturedClock.from_table(r, ctx)
+        for own in ("column", "bandwidth"):
+            if r.has(own):
+                raise r.error(own, "belongs to a clock read from a capture (waveform = \"FILE\")")
+        frequency = r.get("frequency", required=True)
+        swing = r.get("swing", required=True)
         duty = r.get("duty_cycle")
         edge = r.get("edge")
-        rise_measured = r.get("rise_time")
+        rise_measured = r.get("rise_time", required=True)
         fall_measured = r.get("fall_time") if r.has("fall_time") else rise_measured
         rise, fall = full_edge_time(rise_measured, edge), full_edge_time(fall_measured, edge)
         try:
@@ -238,19 +270,128 @@ class Clock:
         except WaveformError as err:
             raise r.error("edge_shape", str(err), shape) from None
         spread = Spread.from_table(r.reader("spread", Spread.KEYS), frequency) if r.has("spread") else None
-        resistance = capacitance = None
-        if r.has("load"):
-            load = r.reader("load", r.keys["load"].schema)
-            resistance, capacitance = load.get("resistance"), load.get("capacitance")
-            if resistance is None and capacitance is None:
-                raise r.error("load", "give a resistance, a capacitance or both (series R + C)")
+        resistance, capacitance = _load(r)
         names = _path_names(r, ctx.paths)
-        for p in names:
-            if ctx.paths[p].input in ("current", "escape") and resistance is None and capacitance is None:
-                raise r.error("load", f"missing; path {p!r} needs the clock current, which needs a load")
+        _check_load(r, ctx, names, resistance, capacitance)
         rail = _rail_name(r, ctx.rails, names, ctx.paths)
         return cls(r.get("name"), wave, names, resistance, capacitance, spread, r.get("reference"), rail, mode,
                    shape, rise_p, fall_p, r.get("combine") or ctx.combine)
+
+
+#: Rows of a clock read from a capture that lie above what the capture measured.
+EXTRAPOLATED = declare("extrapolated", "extrap", "above the capture's limit: the fitted trapezoid's envelope", 21)
+
+
+@dataclass(frozen=True)
+class CapturedClock:
+    """A clock whose harmonics come from a capture (``waveform = "FILE"``), up to the capture's limit.
+
+    ``measured`` holds the capture's peak phasors of harmonics 1..limit (:func:`emispec.capture.analyse`);
+    ``wave`` is the fitted trapezoid (at the modelled frequency, its edges scaled with the period when a
+    ``frequency`` key moves it).  Above the limit the trapezoid's envelope continues (flag ``extrapolated``),
+    in either mode: a null the capture did not see must not be invented.  In envelope mode a harmonic reads
+    the fitted trapezoid's envelope, raised where the capture stands over it: by the largest excess among its
+    neighbours within a third of an octave, each referred to it along the envelope
+    (:func:`emispec.capture.neighbourhood_ratio`).  So ringing lifts the envelope, while the nulls and dips of
+    one captured sample (its exact duty cycle, its edges' sinc) never lower it.  The rail current is the
+    fitted trapezoid's.
+    """
+
+    section: ClassVar[str] = "clock"
+
+    name: str
+    wave: Trapezoid
+    measured: np.ndarray
+    paths: tuple[str, ...]
+    load_resistance_ohm: float | None = None
+    load_capacitance_f: float | None = None
+    spread: Spread | None = None
+    reference: str | None = None
+    rail: str | None = None
+    mode: str = "envelope"
+    combine: str = "power"
+    file: str = ""
+
+    has_load = Clock.has_load
+    _load_phasor = Clock._load_phasor
+    _supply = Clock._supply
+    edge_shape = "linear"
+
+    @property
+    def frequency_hz(self) -> float:
+        return self.wave.frequency_hz
+
+    @property
+    def limit(self) -> int:
+        return len(self.measured)
+
+    def _edges(self) -> tuple[float, float]:
+        return self.wave.rise_s, self.wave.fall_s
+
+    def _envelope(self, f) -> np.ndarray:
+        return spectrum_envelope(self.wave, f)
+
+    def exact(self, n: np.ndarray) -> dict[str, np.ndarray]:
+        """The capture's harmonics up to its limit; above, the trapezoid's envelope with its phase (RMS)."""
+        n = np.asarray(n)
+        f = n * self.frequency_hz
+        inside = (n >= 1) & (n <= self.limit)
+        beyond = self._envelope(f) * np.exp(1j * np.angle(harmonic_phasors(self.wave, np.maximum(n, 1))))
+        peak = np.where(inside, self.measured[np.clip(n, 1, self.limit) - 1], beyond)
+        voltage = peak / np.sqrt(2)
+        return {"voltage": voltage, "current": voltage * self._load_phasor(f), "rail": self._supply(n) / np.sqrt(2)}
+
+    def bounds(self, frequency_hz) -> dict[str, np.ndarray]:
+        """The trapezoid's envelope, raised up to the limit by the nearest harmonic's neighbourhood excess (RMS)."""
+        f = np.asarray(frequency_hz, dtype=float)
+        m = np.arange(1, self.limit + 1)
+        ratio = np.maximum(1.0, neighbourhood_ratio(self.measured, self._envelope(m * self.frequency_hz)))
+        n = np.rint(f / self.frequency_hz).astype(int)
+        scale = np.where(n <= self.limit, ratio[np.clip(n, 1, self.limit) - 1], 1.0)
+        voltage = self._envelope(f) * scale / np.sqrt(2)
+        if self.has_load:
+            rail = supply_current_bound(self.wave, f, self.load_resistance_ohm, self.load_capacitance_f, "linear",
+                                        self.wave.rise_s, min(self._edges())) / np.sqrt(2)
+        else:
+            rail = np.full(f.shape, np.nan)
+        return {"voltage": voltage, "current": voltage * np.abs(self._load_phasor(f)), "rail": rail}
+
+    harmonics = Clock.harmonics
+
+    def row_flags(self, n) -> dict[str, np.ndarray]:
+        return {EXTRAPOLATED: np.asarray(n) > self.limit}
+
+    @classmethod
+    def from_table(cls, r: TableReader, ctx: BoardContext) -> CapturedClock:
+        from .capture import CaptureError, analyse_file
+        from .readers import FileError
+
+        for own in ("rise_time", "fall_time", "edge", "swing", "duty_cycle", "edge_shape"):
+            if r.has(own):
+                raise r.error(own, "comes from the capture (waveform); remove it, or remove waveform")
+        shown = r.get("waveform")
+        path = Path(ctx.base_dir) / shown
+        try:
+            analysis = ctx.files.read(analyse_file, path, r.get("column"))
+        except (FileError, CaptureError) as err:
+            raise r.error("waveform", str(err), shown) from None
+        limit = analysis.limit_within(r.get("bandwidth"))
+        if limit < 1:
+            where = "bandwidth" if r.has("bandwidth") else "waveform"
+            raise r.error(where, "no harmonic of the capture within its bandwidth stands 10 dB over its noise "
+                          "floor", r.table[where])
+        fitted = analysis.trapezoid()
+        frequency = r.get("frequency") or fitted.frequency_hz
+        scale = fitted.frequency_hz / frequency  # the capture's shape per period is kept
+        wave = Trapezoid(frequency, fitted.swing_v, fitted.duty, fitted.rise_s * scale, fitted.fall_s * scale)
+        spread = Spread.from_table(r.reader("spread", Spread.KEYS), frequency) if r.has("spread") else None
+        resistance, capacitance = _load(r)
+        names = _path_names(r, ctx.paths)
+        _check_load(r, ctx, names, resistance, capacitance)
+        rail = _rail_name(r, ctx.rails, names, ctx.paths)
+        return cls(r.get("name"), wave, analysis.harmonics[:limit].copy(), names, resistance, capacitance,
+                   spread, r.get("reference"), rail, r.get("harmonics") or ctx.harmonics,
+                   r.get("combine") or ctx.combine, str(shown))
 
 
 @dataclass(frozen=True)
@@ -296,6 +437,9 @@ class Current:
         if self.mode == "exact":
             return exact
         return _at_bound(exact, self.bounds(np.asarray(n, dtype=float) * self.frequency_hz))
+
+    def row_flags(self, n) -> dict[str, np.ndarray]:
+        return {}
 
     @classmethod
     def from_table(cls, r: TableReader, ctx: BoardContext) -> Current:
