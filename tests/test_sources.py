@@ -11,9 +11,7 @@ from emispec.schema import BoardError
 from emispec.sources import EXTRAPOLATED, CapturedClock, Clock, Current
 from emispec.spread import Spread
 from emispec.waveform import Trapezoid, envelope, harmonic_amplitudes, harmonic_phasors, triangle_pulse_amplitudes
-from test_capture import WAVE, capture
-
-WAVE = Trapezoid(25e6, 3.3, 0.45, 1.5e-9, 2e-9)
+from test_capture import WAVE, capture  # Trapezoid(25 MHz, 3.3 V, 45 %, 1.5 ns, 2 ns)
 
 
 def test_exact_clock_voltage_is_the_rms_trapezoid_series_and_its_bound_has_no_nulls():
