@@ -669,7 +669,9 @@ def _print_risk(result, s: dict, count: int) -> None:
 @_guarded
 def waveform_command(
     capture: Path = typer.Argument(..., metavar="FILE", help="Time-domain capture: CSV/TSV, ngspice wrdata or "
-                                   "ASCII raw.", show_default=False),
+                                   "ASCII raw; or an IBIS file (.ibs) for its edge rates.", show_default=False),
+    model: Optional[str] = typer.Option(None, "--model", metavar="NAME",
+                                        help="IBIS file: the [Model] to show (needed when it holds several)."),
     column: Optional[str] = typer.Option(None, "--column", metavar="NAME",
                                          help="The voltage column to analyse (needed when there are several)."),
     bandwidth: Optional[str] = typer.Option(None, "--bandwidth", metavar="FREQ",
@@ -679,10 +681,14 @@ def waveform_command(
                                             help="Write the JSON result to PATH, or '-' for stdout."),
     out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR",
                                            help="Write waveform.json, waveform-harmonics.csv, waveform-clock.toml "
-                                                "and waveform.png into DIR."),
+                                                "and waveform.png into DIR (an IBIS file: ibis.json)."),
     rows: int = typer.Option(15, "--rows", metavar="N", min=0, help="How many harmonics the table shows (0: all)."),
 ) -> None:
-    """What a scope capture or simulator output says: frequency, duty, edges, swing, overshoot, ringing, harmonics."""
+    """What a scope capture or simulator output says: frequency, duty, edges, swing, overshoot, ringing, harmonics;
+    or an IBIS model's edge rates."""
+    if capture.suffix.lower() == ".ibs" or model is not None:
+        _ibis_command(capture, model, json_path, out_dir)
+        return
     from .capture import analyse
     from .outputs import write_file, write_set
     from .readers import read_capture
@@ -730,6 +736,62 @@ def waveform_command(
     out.print(table)
     out.print("the fitted trapezoid, to paste into a board file:", markup=False)
     out.print(clock_snippet(analysis), markup=False)
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+_FIXTURE_UNITS = {"r": "ohm", "v": "V", "l": "H", "c": "F"}
+
+
+def _ibis_command(path: Path, name: str | None, json_path: str | None, out_dir: Path | None) -> None:
+    import json
+
+    from .ibis import read_ibis
+    from .outputs import write_file, write_set
+    from .report import ibis_dict
+    from .units import format_quantity
+
+    models = read_ibis(path)
+    outputs = [m for m in models.values() if m.rise is not None or m.fall is not None]
+    if name is None:
+        if len(outputs) != 1:
+            raise OptionError(f"--model: {path} holds {len(outputs)} models with a [Ramp]: "
+                              f"{', '.join(m.name for m in outputs) or 'none'}; name one")
+        name = outputs[0].name
+    if name not in models:
+        raise OptionError(f"--model {name!r}: not in {path}; it holds: {', '.join(models) or 'no model'}")
+    s = ibis_dict(models[name], str(path))
+    text = json.dumps(s, indent=1, allow_nan=False) + "\n"
+    if json_path:
+        write_file(json_path, text)
+    if out_dir is not None:
+        for written in write_set(out_dir, {"ibis.json": lambda: text}):
+            (err if json_path == "-" else out).print(f"wrote {written}", markup=False)
+    if json_path == "-":
+        return
+    out.print(f"{path}: model {name} ({s['model_type'] or 'Model_type not stated'})", markup=False)
+    if not s["ramps"]:
+        out.print("no [Ramp]: this model states no edge rate (not an output)", markup=False)
+    else:
+        table = Table(title=f"[Ramp] into R_load {s['r_load_ohm']:g} ohm", title_justify="left",
+                      box=box.SIMPLE_HEAD)
+        for head in ("edge", "corner", "dV V", "20-80 ns", "V/ns", "10-90 ns", "0-100 ns"):
+            table.add_column(head, justify="left" if head in ("edge", "corner") else "right")
+        for r in s["ramps"]:
+            table.add_row(r["edge"], r["corner"], f"{r['dv_v']:.4g}", f"{r['dt_s'] * 1e9:.4g}",
+                          f"{r['slew_v_per_s'] * 1e-9:.4g}", f"{r['time_1090_s'] * 1e9:.4g}",
+                          f"{r['time_0100_s'] * 1e9:.4g}")
+        out.print(table)
+        out.print("[dim]dV is the 20-80 % part of the swing into R_load and 20-80 its time; 10-90 and 0-100 are "
+                  "those of the same linear ramp (x 4/3 and / 0.6).[/]")
+    for w in s["waveforms"]:
+        fixture = ", ".join(f"{k[0].upper()}{k[1:]} {format_quantity(v, _FIXTURE_UNITS[k[0]])}"
+                            for k, v in w["fixture"].items())
+        times = ", ".join(f"{c} {t * 1e9:.4g} ns" for c, t in w["time_1090_s"].items() if t is not None)
+        out.print(f"[{w['edge'].title()} Waveform] into {fixture or 'no fixture stated'}: 10-90 {times or 'not reached'}",
+                  markup=False, soft_wrap=True)
+    out.print(f'in a board file: rise_time = {{ ibis = "{path.name}", model = "{name}" }} (the fastest corner; '
+              'corner = "typ" | "min" | "max" picks one; the falling ramp follows unless fall_time is given)',
+              markup=False, soft_wrap=True)
     out.print(f"[dim]{CAUTION}[/]")
 
 

@@ -662,3 +662,30 @@ def waveform_files(analysis, file: str, column: str) -> dict:
         "waveform-clock.toml": lambda: clock_snippet(analysis),
         "waveform.png": lambda: png_bytes(waveform_figure(waveform_dict(analysis, file, column))),
     }
+
+
+def ibis_dict(model, file: str) -> dict:
+    """``emispec.ibis/1``: an IBIS model's ramps per edge and corner (20-80 % as stated; 10-90 % and 0-100 %
+    of the same linear ramp) and the 10-90 % times of its waveform tables (SI)."""
+    from .ibis import CORNERS
+    from .waveform import EDGE_FRACTION
+
+    ramps = []
+    for edge, ramp in (("rising", model.rise), ("falling", model.fall)):
+        for corner in CORNERS if ramp is not None else ():
+            dv, dt = ramp.dv_v[corner], ramp.dt_s[corner]
+            if dt is None:
+                continue
+            full = dt / EDGE_FRACTION["20-80"]
+            ramps.append({"edge": edge, "corner": corner, "dv_v": dv, "dt_s": dt, "slew_v_per_s": dv / dt,
+                          "time_2080_s": dt, "time_1090_s": full * EDGE_FRACTION["10-90"], "time_0100_s": full})
+    return {
+        "schema": "emispec.ibis/1",
+        "file": file,
+        "model": model.name,
+        "model_type": model.model_type or None,
+        "r_load_ohm": model.r_load_ohm,
+        "ramps": ramps,
+        "waveforms": [{"edge": w.edge, "fixture": dict(w.fixture), "time_1090_s": w.time_1090_s()}
+                      for w in model.waveforms],
+    }

@@ -35,6 +35,9 @@ import numpy as np
 
 from .capture import neighbourhood_ratio
 from .flags import declare
+from .ibis import CHOICES as IBIS_CORNERS
+from .ibis import IbisError, read_ibis
+from .readers import FileError
 from .schema import Key, TableReader
 from .spread import Spread
 from .waveform import (EDGE_FRACTION, EDGE_SHAPES, Trapezoid, WaveformError, edge_parameter, full_edge_time,
@@ -119,6 +122,40 @@ def _check_load(r: TableReader, ctx: BoardContext, names, resistance, capacitanc
     for p in names:
         if ctx.paths[p].input in ("current", "escape") and resistance is None and capacitance is None:
             raise r.error("load", f"missing; path {p!r} needs the clock current, which needs a load")
+
+
+#: An edge time taken from an IBIS model's [Ramp]: ``rise_time = { ibis = "driver.ibs", model = "NAME" }``.
+IBIS_KEYS = (Key("ibis", "text", required=True), Key("model", "text"),
+             Key("corner", "choice", default="fastest", choices=IBIS_CORNERS))
+
+
+def _edge_time(r: TableReader, ctx: BoardContext, name: str, edge: str, which: str | None = None
+               ) -> tuple[float, str]:
+    """An edge as written and the thresholds it is measured between: a time in the clock's ``edge``
+    convention, or an IBIS model's 20-80 % ramp time (its ``which`` edge: that of ``name`` by default)."""
+    if not isinstance(r.table.get(name), dict):
+        return r.get(name, required=True), edge
+    spec = r.reader(name, IBIS_KEYS)
+    shown = spec.get("ibis")
+    try:
+        models = ctx.files.read(read_ibis, Path(ctx.base_dir) / shown)
+    except (FileError, IbisError) as err:
+        raise spec.error("ibis", str(err), shown) from None
+    wanted = spec.get("model")
+    if wanted is None:
+        if len(models) != 1:
+            raise spec.error("model", f"missing; {shown} holds {len(models)} models: {', '.join(models) or 'none'}")
+        wanted = next(iter(models))
+    if wanted not in models:
+        close = difflib.get_close_matches(wanted, list(models), n=1)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise spec.error("model", f"not in {shown}; {hint}it holds: {', '.join(models) or 'no model'}", wanted)
+    which = which or ("rise" if name == "rise_time" else "fall")
+    ramp = getattr(models[wanted], which)
+    if ramp is None:
+        raise spec.error("model", f"{wanted} has no [Ramp] dV/dt_{which[0]} (Model_type "
+                         f"{models[wanted].model_type or 'not stated'}): not an output", wanted)
+    return ramp.corner(spec.get("corner"))[2], "20-80"
 
 
 def _rail_name(r: TableReader, rails: dict, names, paths, required: bool = False) -> str | None:
@@ -255,9 +292,14 @@ class Clock:
         swing = r.get("swing", required=True)
         duty = r.get("duty_cycle")
         edge = r.get("edge")
-        rise_measured = r.get("rise_time", required=True)
-        fall_measured = r.get("fall_time") if r.has("fall_time") else rise_measured
-        rise, fall = full_edge_time(rise_measured, edge), full_edge_time(fall_measured, edge)
+        rise_measured, rise_edge = _edge_time(r, ctx, "rise_time", edge)
+        if r.has("fall_time"):
+            fall_measured, fall_edge = _edge_time(r, ctx, "fall_time", edge)
+        elif isinstance(r.table.get("rise_time"), dict):  # the same model's falling ramp, not its rising one
+            fall_measured, fall_edge = _edge_time(r, ctx, "rise_time", edge, "fall")
+        else:
+            fall_measured, fall_edge = rise_measured, rise_edge
+        rise, fall = full_edge_time(rise_measured, rise_edge), full_edge_time(fall_measured, fall_edge)
         try:
             wave = Trapezoid(frequency, swing, duty, rise, fall)
         except WaveformError as err:
@@ -266,7 +308,8 @@ class Clock:
         shape = r.get("edge_shape")
         mode = r.get("harmonics") or ctx.harmonics
         try:
-            rise_p, fall_p = (edge_parameter(t, edge, shape) for t in (rise_measured, fall_measured))
+            rise_p, fall_p = (edge_parameter(t, e, shape) for t, e in ((rise_measured, rise_edge),
+                                                                        (fall_measured, fall_edge)))
         except WaveformError as err:
             raise r.error("edge_shape", str(err), shape) from None
         spread = Spread.from_table(r.reader("spread", Spread.KEYS), frequency) if r.has("spread") else None
@@ -364,7 +407,6 @@ class CapturedClock:
     @classmethod
     def from_table(cls, r: TableReader, ctx: BoardContext) -> CapturedClock:
         from .capture import CaptureError, analyse_file
-        from .readers import FileError
 
         for own in ("rise_time", "fall_time", "edge", "swing", "duty_cycle", "edge_shape"):
             if r.has(own):

@@ -224,8 +224,8 @@ def _entry(template: Template, index: int, table, seen: dict) -> Tolerance:
                               r.table.get("mode", nominal))
     else:
         if nominal is None:
-            raise r.error("key", f"not written in the board file; a {distribution} distribution is centred on the "
-                          "nominal value, so write it there", key)
+            raise r.error("key", f"no number for it in the board file (missing, or taken from an IBIS model); a "
+                          f"{distribution} distribution is centred on the nominal value, so write one there", key)
         raw = r.table["sigma"]
         relative = isinstance(raw, str) and raw.strip().endswith("%")
         if relative and declaration.kind == "ratio":
