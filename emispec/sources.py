@@ -1,4 +1,5 @@
-"""Sources: what emits the harmonics.  One protocol, implemented by the trapezoidal clock and the pulse current.
+"""Sources: what emits the harmonics.  One protocol, implemented by the trapezoidal clock, the clock read from a
+capture and the pulse current.
 
 A source has a fundamental frequency f0 (its unspread line spacing), an
 optional spread-spectrum modulation, an optional shared ``reference`` (sources
@@ -16,7 +17,9 @@ What the pipeline asks of it: :meth:`Source.harmonics` (the levels the margins
 use), :meth:`Source.exact` (the exact series), :meth:`Source.bounds` (an upper
 bound of each quantity at any frequency, with no spectral nulls) and ``mode``:
 ``"envelope"`` (margins use the bound: a pre-compliance estimate must not hide
-emission in a null that a real edge does not have) or ``"exact"``.
+emission in a null that a real edge does not have) or ``"exact"``;
+:meth:`Source.row_flags` gives flags of the source's own per harmonic (a
+captured clock's ``extrapolated``).
 
 Each source kind also declares its board-file keys and reads its own table
 (:meth:`from_table`); :data:`SOURCE_SECTIONS` maps a board-file array
