@@ -497,6 +497,20 @@ def plan_command(
     out.print(f"[dim]{CAUTION}[/]")
 
 
+SCAN = typer.Argument(..., metavar="SCAN", help="Receiver or analyser export (CSV/TSV; see README, 'Measured "
+                      "scans').", show_default=False)
+DETECTOR = typer.Option(None, "--detector", metavar="DET", help="Detector of a single unnamed level column: PK "
+                        "(default), QP, AV or RMS-AV.")
+SCAN_UNIT = typer.Option(None, "--unit", metavar="UNIT", help="Level unit when the header names none: dBuV/m, "
+                         "dBuV, dBuA or dBm.")
+FREQUENCY_UNIT = typer.Option(None, "--frequency-unit", metavar="UNIT", help="Frequency unit of a scan without a "
+                              "header (default Hz): Hz, kHz, MHz or GHz.")
+CORRECTIONS = typer.Option(None, "--correction", metavar="FILE", help="A correction table (frequency, dB) added to "
+                           "every level: antenna factor and cable loss positive, preamp gain negative; repeatable.")
+SCAN_DISTANCE = typer.Option(None, "--distance", metavar="DIST", help="Where the scan was taken ('10 m'; default: a "
+                             "'distance' line in the file, else the limit's distance).")
+
+
 @app.command("report")
 @_guarded
 def report_command(
@@ -512,19 +526,32 @@ def report_command(
                                 help="Monte Carlo samples for the tolerance section (boards with "
                                      "\\[\\[tolerance]] entries)."),
     seed: int = typer.Option(1, "--seed", metavar="S", min=0, max=2**63 - 1, help="Seed of those samples."),
+    scan: Optional[Path] = typer.Option(None, "--scan", metavar="SCAN", help="A measured scan to overlay and match "
+                                        "(as for `emispec compare`)."),
+    detector: Optional[str] = DETECTOR,
+    unit: Optional[str] = SCAN_UNIT,
+    frequency_unit: Optional[str] = FREQUENCY_UNIT,
+    corrections: Optional[list[Path]] = CORRECTIONS,
+    distance: Optional[str] = SCAN_DISTANCE,
     budget: float = BUDGET,
 ) -> None:
-    """One self-contained HTML report: verdict, margins, plots, variants, tolerances and test plan."""
+    """One self-contained HTML report: verdict, margins, plots, variants, tolerances, a measured scan and test
+    plan."""
     from .outputs import write_file
     from .plan import plan_rows
     from .report import html_text
+    from .scan import compare
 
     result = _estimate(board, budget)
+    matched = None
+    if scan is not None:
+        matched = compare(result, _scan(scan, result.board.limit, detector, unit, frequency_unit, corrections,
+                                        distance))
     variants = _run_variants(board, sets, zipped, workers, budget) if sets else None
     plan = plan_rows(result, everything, top=10)
     passing = not everything and not (result.over_limit or result.within_guard_band)
     risk = _study(board, samples, seed, None, None, budget)
-    write_file(out_path, html_text(result, plan, variants, rows, passing=passing, risk=risk))
+    write_file(out_path, html_text(result, plan, variants, rows, passing=passing, risk=risk, scan=matched))
     out.print(f"report: {out_path}", markup=False)
     out.print(f"[dim]{CAUTION}[/]")
 
@@ -792,6 +819,182 @@ def _ibis_command(path: Path, name: str | None, json_path: str | None, out_dir: 
     out.print(f'in a board file: rise_time = {{ ibis = "{path.name}", model = "{name}" }} (the fastest corner; '
               'corner = "typ" | "min" | "max" picks one; the falling ramp follows unless fall_time is given)',
               markup=False, soft_wrap=True)
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+def _scan(path: Path, limit, detector, unit, frequency_unit, corrections, distance):
+    """A scan file read and referred to the limit (unit, corrections, distance)."""
+    from .readers import read_scan
+    from .scan import prepare
+    from .trace import Trace
+    from .units import QuantityError, parse_quantity
+
+    if detector is not None and detector.upper() not in ("PK", "QP", "AV", "RMS-AV"):
+        raise OptionError(f"--detector {detector!r}: allowed: PK, QP, AV, RMS-AV")
+    if frequency_unit is not None and frequency_unit.lower() not in ("hz", "khz", "mhz", "ghz"):
+        raise OptionError(f"--frequency-unit {frequency_unit!r}: allowed: Hz, kHz, MHz, GHz")
+    try:
+        distance_m = parse_quantity(distance, "length") if distance is not None else None
+    except QuantityError as problem:
+        raise OptionError(f"--distance {distance!r}: {problem}") from None
+    data = read_scan(path, detector.upper() if detector else None, unit, frequency_unit)
+    tables = []
+    for file in corrections or ():
+        c = read_scan(file, unit="dB", what="correction")
+        tables.append((c.file, Trace(c.frequency_hz, next(iter(c.levels.values())), "dB", outside="nan")))
+    return prepare(data, limit, tables, distance_m)
+
+
+def _print_comparison(c, rows: int) -> None:
+    from .report import compare_dict
+
+    s = compare_dict(c)
+    unit = c.scan.unit
+    out.print(f"scan {c.scan.file}: {s['scan']['points']} points, {c.scan.detector} "
+              f"({', '.join(s['scan']['detectors'])}), {unit}", markup=False, soft_wrap=True)
+    for note in c.scan.notes:
+        out.print(f"  {note}", markup=False, soft_wrap=True)
+    table = Table(title=f"Measured peaks matched to harmonics ({len(s['matches'])})", title_justify="left",
+                  box=box.SIMPLE_HEAD)
+    for head in ("source", "n", "MHz", "predicted", "measured", "diff dB"):
+        table.add_column(head, justify="left" if head == "source" else "right")
+    ordered = sorted(s["matches"], key=lambda m: -abs(m["difference_db"] or 0))
+    for m in ordered[:rows or None]:
+        table.add_row(esc(m["source"]), str(m["harmonic"]), f"{m['frequency_hz'] / 1e6:.3f}",
+                      _fmt(m["predicted_db"]), _fmt(m["measured_db"]), _fmt(m["difference_db"]))
+    out.print(table)
+    if s["unexplained"]:
+        out.print("unexplained peaks (ambient, or a source the board does not model): " + ", ".join(
+            f"{u['frequency_hz'] / 1e6:.3f} MHz {u['measured_db']:.1f}" for u in s["unexplained"][:rows or None]),
+            markup=False, soft_wrap=True)
+    if s["not_seen"]:
+        out.print("predicted over the measured floor but not in the scan: " + ", ".join(
+            f"{n['source']} n={n['harmonic']} {n['frequency_hz'] / 1e6:.3f} MHz ({n['predicted_db']:.1f} against "
+            f"floor {n['floor_db']:.1f})" for n in s["not_seen"][:rows or None]), markup=False, soft_wrap=True)
+    res = s["residual_db"]
+    out.print(f"measured - predicted over the matched peaks: median {_fmt(res['median'])} dB, RMS "
+              f"{_fmt(res['rms'])} dB", markup=False)
+
+
+@app.command("compare")
+@_guarded
+def compare_command(
+    board: Path = BOARD,
+    scan: Path = SCAN,
+    out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR",
+                                           help="Write compare.json, compare-peaks.csv and compare.png into DIR."),
+    json_path: Optional[str] = typer.Option(None, "--json", metavar="PATH",
+                                            help="Write the JSON result to PATH, or '-' for stdout."),
+    rows: int = typer.Option(20, "--rows", metavar="N", min=0, help="How many matches the table shows (0: all)."),
+    detector: Optional[str] = DETECTOR,
+    unit: Optional[str] = SCAN_UNIT,
+    frequency_unit: Optional[str] = FREQUENCY_UNIT,
+    corrections: Optional[list[Path]] = CORRECTIONS,
+    distance: Optional[str] = SCAN_DISTANCE,
+    budget: float = BUDGET,
+) -> None:
+    """A measured scan against the board: its peaks matched to harmonics, the unexplained and the not seen."""
+    import json
+
+    from .outputs import write_file, write_set
+    from .report import compare_dict, compare_files
+    from .scan import compare
+
+    result = _estimate(board, budget)
+    measured = _scan(scan, result.board.limit, detector, unit, frequency_unit, corrections, distance)
+    c = compare(result, measured)
+    if json_path:
+        write_file(json_path, json.dumps(compare_dict(c), indent=1, allow_nan=False) + "\n")
+    if out_dir is not None:
+        for path in write_set(out_dir, compare_files(result, c)):
+            (err if json_path == "-" else out).print(f"wrote {path}", markup=False)
+    if json_path == "-":
+        return
+    _print_comparison(c, rows)
+    out.print(f"[dim]{CAUTION}[/]")
+
+
+@app.command("fit")
+@_guarded
+def fit_command(
+    board: Path = BOARD,
+    scan: Path = SCAN,
+    free: list[str] = typer.Option(..., "--free", metavar="KEY", help="A key to fit, e.g. 'path[eth_cable].ratio'; "
+                                   "repeat for more.", show_default=False),
+    out_dir: Optional[Path] = typer.Option(None, "--out", metavar="DIR",
+                                           help="Write fitted.toml (the board with the fitted values), fit.json and "
+                                                "fit.png into DIR."),
+    json_path: Optional[str] = typer.Option(None, "--json", metavar="PATH",
+                                            help="Write the JSON result to PATH, or '-' for stdout."),
+    detector: Optional[str] = DETECTOR,
+    unit: Optional[str] = SCAN_UNIT,
+    frequency_unit: Optional[str] = FREQUENCY_UNIT,
+    corrections: Optional[list[Path]] = CORRECTIONS,
+    distance: Optional[str] = SCAN_DISTANCE,
+    budget: float = BUDGET,
+) -> None:
+    """Fit free keys of the board to a measured scan (robust least squares in dB over the matched peaks)."""
+    import json
+
+    from .outputs import write_file, write_set
+    from .parameters import Template, edited_board_text, key_label, raw_value, written_like
+    from .pipeline import estimate
+    from .readers import read_text
+    from .report import compare_files, fit_dict
+    from .scan import fit
+
+    if len(set(free)) != len(free):
+        raise OptionError("--free: a key is given twice")
+    template = Template.load(board)
+    nominal = estimate(template.nominal, budget=budget)
+    measured = _scan(scan, template.nominal.limit, detector, unit, frequency_unit, corrections, distance)
+    result = fit(template, measured, free, nominal)
+    values = dict(zip(result.keys, result.fitted))
+    s = fit_dict(result)
+    text = json.dumps(s, indent=1, allow_nan=False) + "\n"
+    if json_path:
+        write_file(json_path, text)
+    if out_dir is not None:
+        fitted = estimate(template.board_at(values), budget=budget)
+        files = {"fitted.toml": lambda: edited_board_text(read_text(board, "board file").text, values,
+                                                          str(board)),
+                 "fit.json": lambda: text}
+        files["fit.png"] = compare_files(nominal, result.before, fitted=fitted)["compare.png"]
+        for path in write_set(out_dir, files):
+            (err if json_path == "-" else out).print(f"wrote {path}", markup=False)
+    if json_path == "-":
+        return
+    table = Table(title=f"Fitted to {len(s['matched'])} matched peaks of {measured.file} ({measured.detector})",
+                  title_justify="left", box=box.SIMPLE_HEAD)
+    for head in ("key", "nominal", "fitted", "+-", "constrained by"):
+        table.add_column(head, justify="left" if head in ("key", "constrained by") else "right")
+    for key, p in s["parameters"].items():
+        declared, raw = template.parameter(key).declaration, raw_value(template.data, key)
+
+        def show(v):
+            return "-" if v is None else str(written_like(declared, raw, v, 4))
+
+        by = p["constrained_by"]
+        shown = ", ".join(f"{c['source']} n={c['harmonic']} ({100 * c['share']:.0f}%)" for c in by[:3])
+        table.add_row(esc(key_label(key)), show(p["nominal"]), show(p["fitted"]),
+                      show(p["stderr"]) if p["unit"] == "dB" or p["stderr"] is None else
+                      f"{100 * p['stderr'] / p['fitted']:.2g} %",
+                      esc(shown + (f" and {len(by) - 3} more" if len(by) > 3 else "")))
+    out.print(table)
+    before, after = s["residual_db"]["before"], s["residual_db"]["after"]
+    out.print(f"measured - predicted: median {_fmt(before['median'])} dB, RMS {_fmt(before['rms'])} dB before; "
+              f"median {_fmt(after['median'])} dB, RMS {_fmt(after['rms'])} dB after", markup=False, soft_wrap=True)
+    if s["unexplained"]:
+        out.print(f"{len(s['unexplained'])} measured peaks no source explains were left out", markup=False)
+    enveloped = sorted({str(n) for n in result.before.source} & {x.name for x in template.nominal.sources
+                                                                  if x.mode == "envelope"})
+    if enveloped:
+        out.print(f"note: {', '.join(enveloped)} use the spectral envelope; a fitted coupling absorbs the envelope's "
+                  'excess over the real harmonics (harmonics = "exact" fits the physics)', markup=False,
+                  soft_wrap=True)
+    if out_dir is None:
+        out.print("--out DIR writes fitted.toml: the board with these values and everything else as written",
+                  markup=False)
     out.print(f"[dim]{CAUTION}[/]")
 
 

@@ -29,7 +29,8 @@ from .readers import FileCache
 from .schema import BoardError, Key, key_unit
 from .units import parse_quantity
 
-__all__ = ["Parameter", "Template", "set_value", "split_key", "scope_of", "key_label"]
+__all__ = ["Parameter", "Template", "set_value", "split_key", "scope_of", "key_label", "raw_value", "written_like",
+           "edited_board_text"]
 
 _SEGMENT = re.compile(r"^([A-Za-z_][A-Za-z0-9_]*)(?:\[([^\]]+)\])?$")
 
@@ -252,3 +253,57 @@ class Template:
             what = "not a key of this board" if declared is None else f"not numeric ({declared.kind})"
             raise BoardError(self.file, key, what)
         return Parameter(key, declared, None)
+
+
+_NUMBER_AND_UNIT = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
+
+
+def raw_value(data: Mapping, key: str, file: str = "<board>"):
+    """The value at ``key`` as the board file wrote it (None where it wrote none)."""
+    node = data
+    segments = split_key(key, file)
+    for name, selector in segments[:-1]:
+        if not isinstance(node, Mapping) or name not in node:
+            return None
+        node = node[name] if selector is None else node[name][_select(node[name], name, selector, key, file)]
+    return node.get(segments[-1][0]) if isinstance(node, Mapping) else None
+
+
+def written_like(declaration: Key, raw, value: float, digits: int = 5):
+    """``value`` (SI; dB for a gain) as the board file wrote the key before: in its unit and prefix where it had
+    one (``"1 cm2"`` -> ``"2.513 cm2"``), a fraction for a gain written as one, else a plain number."""
+    if declaration.kind == "gain" and not (isinstance(raw, str) and raw.strip().endswith("dB")):
+        return float(f"{10 ** (value / 20):.{digits}g}") if isinstance(raw, (int, float)) else f"{value:.{digits}g} dB"
+    if declaration.kind == "count":
+        return int(round(value))
+    match = _NUMBER_AND_UNIT.match(raw) if isinstance(raw, str) else None
+    if match and match.group(2):
+        number = float(match.group(1))
+        try:
+            factor = parse_quantity(raw, "decibel" if declaration.kind == "gain" else declaration.kind) / number
+        except (ValueError, ZeroDivisionError):
+            factor = None
+        if factor:
+            return f"{value / factor:.{digits}g} {match.group(2)}"
+    return float(f"{value:.{digits + 2}g}")
+
+
+def edited_board_text(text: str, values: Mapping[str, float], file: str = "<board>") -> str:
+    """The board file's text with only the keys in ``values`` changed (SI; dB for gains), every comment and the
+    layout kept (tomlkit).  A key the file did not write is added to its table."""
+    import tomlkit
+
+    document = tomlkit.parse(text)
+    for key, value in values.items():
+        declared = schema_key(document, key, file)
+        if declared is None or not declared.numeric:
+            raise BoardError(file, key, "not a numeric key of this board")
+        node = document
+        segments = split_key(key, file)
+        for name, selector in segments[:-1]:
+            if name not in node:
+                raise BoardError(file, key, f"the board file has no {name!r} here to write the value into")
+            node = node[name] if selector is None else node[name][_select(node[name], name, selector, key, file)]
+        name = segments[-1][0]
+        node[name] = written_like(declared, node.get(name), value)
+    return tomlkit.dumps(document)

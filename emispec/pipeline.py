@@ -59,6 +59,8 @@ __all__ = [
     "source_gains",
     "path_readings",
     "estimate",
+    "board_lines",
+    "readings_at",
     "Stage",
     "read_board",
     "tuning_of",
@@ -717,8 +719,24 @@ def swept_spectrum(est: Estimate, detectors=SWEPT_DETECTORS) -> dict[str, Trace]
             grids.append(np.arange(start, stop, band.rbw_hz / 2))
     exact = [s.line_hz for s in est.lines if not s.modulated]
     tuning = np.unique(np.concatenate(grids + [x[(x >= lo) & (x <= hi)] for x in exact] + [np.array([hi])]))
-    _, combined = _read_at(list(est.lines), tuning, detectors)
-    unit = est.board.limit.unit
+    return readings_at(est.board, est.lines, tuning, detectors)
+
+
+def board_lines(board: Board, reuse: Reuse | None = None) -> tuple[SourceLines, ...]:
+    """Every source's lines over the analysed span, without reading any row (what a scan is compared with)."""
+    lo, hi = analysis_span_hz(board)
+    _check_span(board, lo, hi)
+    check_budget(board)
+    return tuple((reuse.part(board, s, lo, hi) if reuse is not None else _source_part(board, s, lo, hi)).lines
+                 for s in board.sources)
+
+
+def readings_at(board: Board, lines, tuning_hz, detectors=SWEPT_DETECTORS) -> dict[str, Trace]:
+    """What the receiver reads of all sources together at the tuning frequencies, one trace per detector (dB of
+    the limit's unit, NaN where nothing is read)."""
+    tuning = np.asarray(tuning_hz, dtype=float)
+    _, combined = _read_at(list(lines), tuning, detectors)
+    unit = board.limit.unit
     return {d: Trace(tuning, db_micro(v), unit, d, origin="swept receiver") for d, v in combined.items()}
 
 

@@ -19,7 +19,7 @@ from .pipeline import Estimate, RailView  # noqa: E402
 from .trace import Trace  # noqa: E402
 
 __all__ = ["PALETTE", "SOURCE_COLORS", "spectrum_figure", "swept_figure", "rail_figure", "variants_figure",
-           "waveform_figure", "png_bytes", "svg_text"]
+           "waveform_figure", "scan_figure", "png_bytes", "svg_text"]
 
 #: emispec's detector palette: colour, limit-line style and reading marker per detector (README, "Plots").
 PALETTE = {
@@ -327,4 +327,50 @@ def waveform_figure(summary: dict):
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=8)
     fig.text(0.99, 0.005, CAUTION_SHORT, ha="right", va="bottom", fontsize=7, color="#666666")
+    return fig
+
+
+#: The measured trace: near-black, so the predictions (in the detector colours) stand out against it.
+MEASURED_COLOR = "#222222"
+
+
+def scan_figure(est: Estimate, comparison, swept: dict[str, Trace], fitted_swept: dict[str, Trace] | None = None):
+    """A measured scan over the prediction: the scan's traces, the predicted swept readings per detector, each
+    predicted harmonic, the limit and guard band, the measured floor, the matched and unexplained peaks.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    scan = comparison.scan
+    rows = est.rows
+    fig, ax = plt.subplots(figsize=(12, 6), layout="constrained")
+    for det, trace in scan.traces.items():
+        ax.plot(trace.frequency_hz, trace.level_db, lw=0.7, color=MEASURED_COLOR,
+                alpha=1.0 if det == scan.detector else 0.45, zorder=2, label=f"measured {det}")
+    ax.plot(scan.frequency_hz, comparison.floor_db, ":", lw=0.9, color="gray", label="measured floor")
+    for det, trace in swept.items():
+        ax.plot(trace.frequency_hz, trace.level_db, lw=0.8, color=_style(det)["color"], alpha=0.8, zorder=3,
+                label=f"predicted swept {det}")
+    for det, trace in (fitted_swept or {}).items():
+        ax.plot(trace.frequency_hz, trace.level_db, "--", lw=0.8, color=_style(det)["color"], zorder=3,
+                label=f"fitted swept {det}")
+    det = scan.detector
+    if det in rows.readings:
+        for k, source in enumerate(est.board.sources):
+            mine = rows.source == source.name
+            ax.plot(rows.frequency_hz[mine], rows.readings[det][mine], _style(det)["marker"], ms=3,
+                    color=SOURCE_COLORS[k % len(SOURCE_COLORS)], label=f"{_source_label(source)}, {det}")
+    if comparison.peak_hz.size:
+        ax.plot(comparison.peak_hz, comparison.measured[det], "o", mfc="none", ms=8, color=MEASURED_COLOR, zorder=4,
+                label="matched peak")
+    if comparison.unexplained_hz.size:
+        ax.plot(comparison.unexplained_hz, comparison.unexplained_db, "*", ms=10, color=OVER_COLOR, zorder=5,
+                label="unexplained peak")
+    lo, hi = est.span_hz
+    limit_max = _limit_lines(ax, est, np.geomspace(lo, hi, 4000))
+    finite = scan.level_db[np.isfinite(scan.level_db)]
+    top = max(limit_max, finite.max() if finite.size else limit_max) + 10
+    ax.set_ylim(top - 100, top)
+    _finish(fig, ax, est, f"scan {scan.file.rsplit('/', 1)[-1]}")
     return fig

@@ -1,4 +1,5 @@
-"""Every file emispec reads, in one place: board and limit TOML, two-column CSV lines, Touchstone, impedance tables.
+"""Every file emispec reads, in one place: board and limit TOML, two-column CSV lines, Touchstone, impedance tables,
+captures, measured scans.
 
 Each reader takes a path and returns the data with where it came from, or
 raises :class:`FileError` (file, where in it, what is wrong) that the caller
@@ -47,6 +48,9 @@ __all__ = [
     "read_impedance_table",
     "CaptureData",
     "read_capture",
+    "ScanData",
+    "read_scan",
+    "SCAN_UNITS",
 ]
 
 #: Largest file emispec reads (board, limit, table, Touchstone) [bytes].
@@ -428,3 +432,144 @@ def read_capture(path: str | Path, column: str | None = None, what: str = "captu
     if not np.all(np.isfinite(values)):
         raise FileError(source.file, wanted, "a value is not finite")
     return CaptureData(time, values, wanted, source.file)
+
+
+@dataclass(frozen=True)
+class ScanData:
+    """A measured scan: one level column per detector (dB of ``unit``, as in the file), and the file's metadata.
+
+    ``frequency_hz`` ascending; ``levels`` maps a detector name (PK, QP, AV, RMS-AV) to its column;
+    ``metadata`` holds the ``key;value`` lines before the header (keys in lower case).
+    """
+
+    frequency_hz: np.ndarray
+    levels: dict
+    unit: str
+    metadata: dict
+    file: str
+
+
+_FREQUENCY_NAMES = ("frequency", "freq", "f")
+_FREQUENCY_UNITS = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9}
+#: Detector names a scan's header may carry, in lower case without spaces, dashes or underscores.
+_DETECTOR_WORDS = {"pk": "PK", "peak": "PK", "maxpeak": "PK", "qp": "QP", "quasipeak": "QP", "av": "AV",
+                   "avg": "AV", "average": "AV", "cav": "AV", "rmsav": "RMS-AV", "rmsaverage": "RMS-AV"}
+#: Level units a scan may be in, as written (lower case, micro as u) -> emispec's spelling.
+SCAN_UNITS = {"dbuv/m": "dBuV/m", "dbuv": "dBuV", "dbua": "dBuA", "dbm": "dBm"}
+
+
+def _level_unit(text: str) -> str | None:
+    """The level unit named anywhere in a header cell (``Level [dBµV/m]``, ``PK (dBuV)``), or None."""
+    folded = text.lower().replace("µ", "u").replace("μ", "u").replace(" ", "")
+    for written in sorted(SCAN_UNITS, key=len, reverse=True):  # dbuv/m before dbuv
+        if written in folded:
+            return SCAN_UNITS[written]
+    return None
+
+
+def _detector_of(name: str) -> str | None:
+    words = name.split("[")[0].split("(")[0].lower().replace("-", " ").replace("_", " ").split()
+    joined = "".join(words)
+    for candidate in [joined] + ["".join(words[i:i + 2]) for i in range(len(words) - 1)] + words:
+        if candidate in _DETECTOR_WORDS:
+            return _DETECTOR_WORDS[candidate]
+    return None
+
+
+def read_scan(path: str | Path, detector: str | None = None, unit: str | None = None,
+              frequency_unit: str | None = None, what: str = "scan") -> ScanData:
+    """A receiver or spectrum-analyser export (see README, "Measured scans").
+
+    Separators comma, semicolon or tab (decimal comma beside the latter two); metadata lines (``key;value``)
+    and ``#`` comments before the header; a header naming the frequency column (``Frequency``, ``Freq``,
+    ``f``, unit Hz/kHz/MHz/GHz in brackets or parentheses) and level columns named by their detector (a single
+    unnamed level column is ``detector``, default PK), level units from the header or ``unit``; or no header:
+    frequency (in ``frequency_unit``, default Hz) and one level column.
+
+    Raises
+    ------
+    FileError
+        Naming the line and what was expected.
+    """
+    source = read_text(path, what)
+    file = source.file
+    metadata, header, header_line, rows = {}, None, None, []
+    for lineno, line in enumerate(source.text.splitlines(), start=1):
+        if not line.strip() or line.lstrip().startswith("#"):
+            continue
+        cells = _split(line)
+        try:
+            values = [float(c) for c in cells]
+        except ValueError:
+            values = None
+        if values is not None and len(values) >= 2:
+            if rows and len(values) != len(rows[0][1]):
+                raise FileError(file, f"line {lineno}", f"expected {len(rows[0][1])} numbers, got {len(values)}")
+            rows.append((lineno, values))
+            continue
+        if values is not None and len(values) == 1:
+            raise FileError(file, f"line {lineno}", "one column: expected a frequency and at least one level")
+        if rows or _numbers([cells[0], "0"]) is not None:  # a number first: a data row with text in it
+            expected = f"{len(rows[0][1])} numbers" if rows else "numbers"
+            raise FileError(file, f"line {lineno}", f"expected {expected} (frequency, level...), got "
+                            f"{line.strip()[:40]!r}")
+        bare = cells[0].split("[")[0].split("(")[0].strip().lower()
+        if len(cells) >= 2 and bare in _FREQUENCY_NAMES:
+            header, header_line = cells, lineno
+        elif len(cells) >= 2 and cells[0].strip():
+            metadata[cells[0].strip().lower()] = ";".join(cells[1:]).strip()
+    if not rows:
+        raise FileError(file, what, "no rows of numbers (frequency and level)")
+    table = np.array([v for _, v in rows])
+    if header is not None and len(header) != table.shape[1]:
+        raise FileError(file, f"line {header_line}", f"the header names {len(header)} columns, the rows hold "
+                        f"{table.shape[1]}")
+    if header is None:
+        if table.shape[1] != 2:
+            raise FileError(file, f"line {rows[0][0]}", f"{table.shape[1]} columns without a header: expected two "
+                            "(frequency, level), or a header naming them")
+        scale_name = (frequency_unit or "Hz").lower()
+        names = [f"frequency ({frequency_unit or 'Hz'})", "level"]
+    else:
+        names = header
+        inside = header[0][len(header[0].split("[")[0].split("(")[0]):].strip("[]() ").lower()
+        scale_name = inside or (frequency_unit or "Hz").lower()
+    if scale_name not in _FREQUENCY_UNITS:
+        raise FileError(file, f"line {header_line or rows[0][0]}", f"frequency unit {scale_name!r}; expected Hz, "
+                        "kHz, MHz or GHz")
+    frequency = table[:, 0] * _FREQUENCY_UNITS[scale_name]
+    levels, units = {}, set()
+    for k in range(1, table.shape[1]):
+        named = _detector_of(names[k])
+        if named is None:
+            if table.shape[1] > 2:
+                raise FileError(file, f"line {header_line}", f"column {names[k]!r}: name its detector (PK, QP, AV) "
+                                "when a scan has several level columns")
+            named = detector or "PK"
+        if named in levels:
+            raise FileError(file, f"line {header_line}", f"two columns for detector {named}")
+        levels[named] = table[:, k]
+        found = _level_unit(names[k])
+        if found is not None:
+            units.add(found)
+    if len(units) > 1:
+        raise FileError(file, f"line {header_line}", f"level columns in different units ({', '.join(sorted(units))})")
+    found = units.pop() if units else None
+    if unit == "dB":  # a correction table: frequency against a dB figure, whatever its header calls it
+        found = "dB"
+    elif unit is not None:
+        found = SCAN_UNITS.get(unit.lower().replace("µ", "u").replace("μ", "u"))
+        if found is None:
+            raise FileError(file, "unit", f"{unit!r}; expected one of dBuV/m, dBuV, dBuA, dBm")
+    if found is None:
+        raise FileError(file, f"line {header_line or rows[0][0]}", "no level unit in the header (dBuV/m, dBuV, "
+                        "dBuA, dBm); give it with --unit")
+    steps = np.diff(frequency)
+    if not np.all(steps > 0):
+        bad = int(np.argmax(~(steps > 0))) + 1
+        raise FileError(file, f"line {rows[bad][0]}", "frequency does not increase (the scan must be in frequency "
+                        "order)")
+    if not (np.all(np.isfinite(table)) and frequency[0] > 0):
+        bad = int(np.argmax(~np.all(np.isfinite(table), axis=1) | (table[:, 0] <= 0)))
+        raise FileError(file, f"line {rows[bad][0]}", "expected a frequency > 0 and finite levels")
+    return ScanData(frequency, levels, found, metadata, file)

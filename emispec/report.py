@@ -34,7 +34,8 @@ __all__ = [
     "CAUTION", "SCHEMA", "Views", "views_of", "result_dict", "row_dict", "csv_text", "swept_csv_text",
     "markdown_text", "output_files", "write_outputs", "plan_csv_text", "plan_markdown_text", "variants_rows",
     "variants_csv_text", "html_text", "RISK_SCHEMA", "risk_dict", "risk_json_text", "risk_csv_text",
-    "risk_samples_csv_text", "risk_files",
+    "risk_samples_csv_text", "risk_files", "COMPARE_SCHEMA", "FIT_SCHEMA", "compare_dict", "compare_csv_text",
+    "compare_files", "fit_dict",
 ]
 
 SCHEMA = "emispec.result/1"
@@ -403,12 +404,13 @@ def _html_variants_table(variants) -> str:
 
 
 def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 20, views: Views | None = None,
-              passing: bool = False, risk=None) -> str:
+              passing: bool = False, risk=None, scan=None) -> str:
     """One self-contained HTML report: inline SVG plots, no scripts, no external assets.
 
     User text (titles, names, notes) is escaped.  ``rows`` is how many of the worst rows the margin table
     shows; ``passing`` says that the plan lists the closest rows of a board that keeps its guard band;
-    ``risk`` (a :class:`emispec.risk.RiskResult`) adds the tolerance study.
+    ``risk`` (a :class:`emispec.risk.RiskResult`) adds the tolerance study, ``scan`` (a
+    :class:`emispec.scan.Comparison`) a measured scan's overlay and match table.
     """
     from .plot import rail_figure, spectrum_figure, svg_text, swept_figure, variants_figure
 
@@ -451,6 +453,8 @@ def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 20, vi
                   f"<figure>{svg_text(variants_figure(variants))}</figure>"]
     if risk is not None:
         parts += _html_risk_section(risk, rows)
+    if scan is not None:
+        parts += _html_scan_section(est, scan)
     parts += [f"<h2>{html.escape(plan_title)}</h2>",
               _html_plan_table(plan) if plan else "<p>Nothing within the guard band.</p>",
               f'<p class="caution">{html.escape(CAUTION)}</p>',
@@ -689,3 +693,135 @@ def ibis_dict(model, file: str) -> dict:
         "waveforms": [{"edge": w.edge, "fixture": dict(w.fixture), "time_1090_s": w.time_1090_s()}
                       for w in model.waveforms],
     }
+
+
+# ---------------------------------------------------------------- measured scans: compare and fit
+
+COMPARE_SCHEMA = "emispec.compare/1"
+FIT_SCHEMA = "emispec.fit/1"
+
+
+def _match_dicts(c, difference=None) -> list[dict]:
+    d = c.scan.detector
+    difference = c.difference_db if difference is None else difference
+    return [{"source": str(c.source[i]), "harmonic": int(c.harmonic[i]),
+             "harmonic_hz": _num(c.harmonic_hz[i], 0), "frequency_hz": _num(c.peak_hz[i], 0),
+             "detector": d, "predicted_db": _num(c.predicted[d][i], 2), "measured_db": _num(c.measured[d][i], 2),
+             "difference_db": _num(difference[i], 2), "prominence_db": _num(c.prominence_db[i], 2),
+             "other_detectors": {k: {"predicted_db": _num(c.predicted[k][i], 2),
+                                     "measured_db": _num(c.measured[k][i], 2)} for k in c.measured if k != d}}
+            for i in range(c.peak_hz.size)]
+
+
+def _unexplained_dicts(c) -> list[dict]:
+    return [{"frequency_hz": _num(f, 0), "measured_db": _num(m, 2), "floor_db": _num(fl, 2)}
+            for f, m, fl in zip(c.unexplained_hz, c.unexplained_db, c.unexplained_floor_db)]
+
+
+def _stats(stats: dict) -> dict:
+    return {k: _num(v, 2) for k, v in stats.items()}
+
+
+def compare_dict(c) -> dict:
+    """``emispec.compare/1``: the scan's peaks matched to the board's harmonics (dB of the limit's unit)."""
+    from .scan import CLEAR_DB, MATCH_FRACTION, PROMINENCE_DB
+
+    return {
+        "schema": COMPARE_SCHEMA,
+        "emispec_version": __version__,
+        "caution": CAUTION,
+        "scan": {"file": c.scan.file, "unit": c.scan.unit, "detector": c.scan.detector,
+                 "detectors": list(c.scan.traces), "points": int(c.scan.frequency_hz.size),
+                 "span_hz": [_num(c.scan.frequency_hz[0], 0), _num(c.scan.frequency_hz[-1], 0)],
+                 "notes": list(c.scan.notes)},
+        "rules": {"prominence_db": PROMINENCE_DB, "clear_of_floor_db": CLEAR_DB,
+                  "match_within": f"max(RBW, {MATCH_FRACTION:g} f, 1.5 scan steps)"},
+        "matches": _match_dicts(c),
+        "unexplained": _unexplained_dicts(c),
+        "not_seen": [{"source": str(s), "harmonic": int(n), "frequency_hz": _num(f, 0), "predicted_db": _num(p, 2),
+                      "floor_db": _num(fl, 2)}
+                     for s, n, f, p, fl in zip(c.not_seen_source, c.not_seen_harmonic, c.not_seen_hz,
+                                               c.not_seen_predicted_db, c.not_seen_floor_db)],
+        "residual_db": _stats(c.residual()),
+    }
+
+
+def compare_csv_text(c) -> str:
+    """One line per measured peak (matched or unexplained), then the harmonics not seen."""
+    unit = unit_token(c.scan.unit)
+    head = ["kind", "source", "harmonic", "frequency_mhz", f"predicted_{unit}", f"measured_{unit}", "difference_db",
+            f"floor_{unit}"]
+    d = c.scan.detector
+    lines = [["matched", s, int(n), f"{f / 1e6:.3f}", _csv_number(p), _csv_number(m), _csv_number(m - p), ""]
+             for s, n, f, p, m in zip(c.source, c.harmonic, c.peak_hz, c.predicted[d], c.measured[d])]
+    lines += [["unexplained", "", "", f"{f / 1e6:.3f}", "", _csv_number(m), "", _csv_number(fl)]
+              for f, m, fl in zip(c.unexplained_hz, c.unexplained_db, c.unexplained_floor_db)]
+    lines += [["not-seen", s, int(n), f"{f / 1e6:.3f}", _csv_number(p), "", "", _csv_number(fl)]
+              for s, n, f, p, fl in zip(c.not_seen_source, c.not_seen_harmonic, c.not_seen_hz,
+                                        c.not_seen_predicted_db, c.not_seen_floor_db)]
+    return _csv(head, lines)
+
+
+def compare_files(est: Estimate, c, prefix: str = "compare", fitted: Estimate | None = None) -> dict:
+    """Every file ``compare --out`` writes (``fit --out`` adds its own): name -> function giving its contents."""
+    from .plot import png_bytes, scan_figure
+
+    def figure():
+        fitted_swept = swept_spectrum(fitted, (c.scan.detector,)) if fitted is not None else None
+        return png_bytes(scan_figure(est, c, swept_spectrum(est, (c.scan.detector,)), fitted_swept))
+
+    return {f"{prefix}.json": lambda: json.dumps(compare_dict(c), indent=1, allow_nan=False) + "\n",
+            f"{prefix}-peaks.csv": lambda: compare_csv_text(c),
+            f"{prefix}.png": figure}
+
+
+def fit_dict(result) -> dict:
+    """``emispec.fit/1``: the fitted keys (SI; dB for gains) with standard errors, residuals before and after."""
+    from .scan import residual_stats
+
+    c = result.before
+    parameters = {}
+    for j, key in enumerate(result.keys):
+        parameters[key] = {
+            "nominal": _num(result.nominal[j], 12), "fitted": float(f"{result.fitted[j]:.6g}"),
+            "unit": result.units[j], "stderr": _number_or_none(float(f"{result.stderr[j]:.3g}")),
+            "constrained_by": [{"source": str(c.source[i]), "harmonic": int(c.harmonic[i]),
+                                "frequency_hz": _num(c.peak_hz[i], 0), "share": _num(s, 3)}
+                               for i, s in zip(result.constraining[j], result.shares[j])],
+        }
+    return {
+        "schema": FIT_SCHEMA,
+        "emispec_version": __version__,
+        "caution": CAUTION,
+        "scan": {"file": c.scan.file, "unit": c.scan.unit, "detector": c.scan.detector, "notes": list(c.scan.notes)},
+        "parameters": parameters,
+        "residual_db": {"before": _stats(c.residual()), "after": _stats(residual_stats(result.after_difference_db))},
+        "evaluations": result.iterations,
+        "matched": _match_dicts(c, result.after_difference_db),
+        "unexplained": _unexplained_dicts(c),
+    }
+
+
+def _html_scan_section(est: Estimate, c) -> list[str]:
+    """The report's scan section: the overlay and the match table."""
+    from .plot import scan_figure, svg_text
+
+    s = compare_dict(c)
+    res = s["residual_db"]
+    fmt = lambda x: "-" if x is None else f"{x:.1f}"  # noqa: E731
+    matches = [[html.escape(m["source"]), str(m["harmonic"]), f"{m['frequency_hz'] / 1e6:.3f}",
+                fmt(m["predicted_db"]), fmt(m["measured_db"]), fmt(m["difference_db"])] for m in s["matches"]]
+    others = [["unexplained", "-", f"{u['frequency_hz'] / 1e6:.3f}", "-", fmt(u["measured_db"]), "-"]
+              for u in s["unexplained"]]
+    others += [[f"not seen: {html.escape(n['source'])}", str(n["harmonic"]), f"{n['frequency_hz'] / 1e6:.3f}",
+                fmt(n["predicted_db"]), f"floor {fmt(n['floor_db'])}", "-"] for n in s["not_seen"]]
+    unit = html.escape(c.scan.unit)
+    head = ["source", "n", "MHz", f"predicted {unit}", f"measured {unit}", "difference dB"]
+    return [
+        f"<h2>Measured scan: {html.escape(c.scan.file)} ({c.scan.detector})</h2>",
+        f"<p>{len(s['matches'])} peaks matched, {len(s['unexplained'])} unexplained, {len(s['not_seen'])} predicted "
+        f"harmonics not seen; measured - predicted: median {fmt(res['median'])} dB, RMS {fmt(res['rms'])} dB."
+        + "".join(f" {html.escape(n)}." for n in c.scan.notes) + "</p>",
+        f"<figure>{svg_text(scan_figure(est, c, swept_spectrum(est, (c.scan.detector,))))}</figure>",
+        _html_table(head, matches + others, {0}),
+    ]
