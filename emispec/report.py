@@ -767,8 +767,9 @@ def compare_files(est: Estimate, c, prefix: str = "compare", fitted: Estimate | 
     from .plot import png_bytes, scan_figure
 
     def figure():
-        fitted_swept = swept_spectrum(fitted, (c.scan.detector,)) if fitted is not None else None
-        return png_bytes(scan_figure(est, c, swept_spectrum(est, (c.scan.detector,)), fitted_swept))
+        detectors = tuple(c.scan.traces)
+        fitted_swept = swept_spectrum(fitted, detectors) if fitted is not None else None
+        return png_bytes(scan_figure(est, c, swept_spectrum(est, detectors), fitted_swept))
 
     return {f"{prefix}.json": lambda: json.dumps(compare_dict(c), indent=1, allow_nan=False) + "\n",
             f"{prefix}-peaks.csv": lambda: compare_csv_text(c),
@@ -822,6 +823,6 @@ def _html_scan_section(est: Estimate, c) -> list[str]:
         f"<p>{len(s['matches'])} peaks matched, {len(s['unexplained'])} unexplained, {len(s['not_seen'])} predicted "
         f"harmonics not seen; measured - predicted: median {fmt(res['median'])} dB, RMS {fmt(res['rms'])} dB."
         + "".join(f" {html.escape(n)}." for n in c.scan.notes) + "</p>",
-        f"<figure>{svg_text(scan_figure(est, c, swept_spectrum(est, (c.scan.detector,))))}</figure>",
+        f"<figure>{svg_text(scan_figure(est, c, swept_spectrum(est, tuple(c.scan.traces))))}</figure>",
         _html_table(head, matches + others, {0}),
     ]
