@@ -272,15 +272,13 @@ def _transforms(parameter):
     """(to x, from x, bounds in x) for a key: log for positive quantities, as is for dB gains and numbers."""
     declared = parameter.declaration
     low, high = declared.low, declared.high
-    if declared.kind in ("gain", "number", "count") or low is None or low < 0:
-        lo = -np.inf if low is None or declared.kind == "gain" else low
-        hi = np.inf if high is None else high
-        if declared.kind == "gain":
-            lo, hi = -300.0, 0.0
-        return (lambda v: v), (lambda x: x), (lo, hi)
-    lo = -np.inf if low <= 0 else math.log(low)
-    hi = np.inf if high is None else math.log(high)
-    return math.log, math.exp, (lo, hi)
+    if declared.kind == "count":
+        raise ScanError(f"--free {parameter.key}: a count cannot be fitted; vary it instead")
+    if declared.kind == "gain":
+        return (lambda v: v), (lambda x: x), (-300.0, 0.0)
+    if declared.kind == "number" or low is None or low < 0:
+        return (lambda v: v), (lambda x: x), (-np.inf if low is None else low, np.inf if high is None else high)
+    return math.log, math.exp, (-np.inf if low <= 0 else math.log(low), np.inf if high is None else math.log(high))
 
 
 def fit(template, scan: Scan, keys, nominal_estimate=None) -> FitResult:
