@@ -967,7 +967,8 @@ def fit_command(
     table = Table(title=f"Fitted to {len(s['matched'])} matched peaks of {measured.file} ({measured.detector})",
                   title_justify="left", box=box.SIMPLE_HEAD)
     for head in ("key", "nominal", "fitted", "+-", "constrained by"):
-        table.add_column(head, justify="left" if head in ("key", "constrained by") else "right")
+        table.add_column(head, justify="left" if head in ("key", "constrained by") else "right",
+                         no_wrap=head != "constrained by")
     for key, p in s["parameters"].items():
         declared, raw = template.parameter(key).declaration, raw_value(template.data, key)
 

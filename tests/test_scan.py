@@ -272,3 +272,16 @@ def test_units_corrections_and_distance():
     Data.unit, Data.metadata = "dBuV/m", {"distance": "10 m"}
     far = prepare(Data, limit)
     assert far.level_db[0] == pytest.approx(10.457, abs=0.001) and "scaled to the limit's 3 m" in far.notes[0]
+
+
+def test_the_demo_scan_tells_its_story():
+    # demo data consistency, no outside source: samples/make_prescan.py made the scan from these invented ratios
+    from conftest import REPO
+
+    template = Template.load(REPO / "samples" / "beehive-gateway.toml")
+    nominal = estimate(template.nominal)
+    scan = prepare(read_scan(REPO / "samples" / "beehive-prescan.csv"), template.nominal.limit)
+    c = compare(nominal, scan)
+    assert sorted(np.round(c.unexplained_hz / 1e6, 1)) == [94.6, 162.4]
+    result = fit(template, scan, ["path[ethernet_cable].ratio", "path[dc_cable].ratio"], nominal)
+    assert result.fitted == pytest.approx([-79.0, -49.0], abs=0.5)
