@@ -220,3 +220,14 @@ def test_waveform_command_errors_are_one_line(written):
     assert "too few periods" in result.stderr and len(result.stderr.strip().splitlines()) == 1
     result = CliRunner().invoke(app, ["waveform", str(path), "--bandwidth", "fast"])
     assert result.exit_code == 2 and "--bandwidth" in result.stderr
+
+
+def test_the_demo_capture_tells_its_story():
+    # demo data consistency, no outside source: samples/make_capture.py drew these invented values
+    from conftest import REPO
+
+    data = read_capture(REPO / "samples" / "sdram-clk-capture.csv")
+    a = analyse(data.time_s, data.voltage_v, data.file)
+    assert a.frequency_hz == pytest.approx(100e6, rel=1e-4) and a.duty == pytest.approx(0.48, rel=0.01)
+    assert a.rise_s == pytest.approx(0.42e-9, rel=0.03) and a.fall_s == pytest.approx(0.5e-9, rel=0.03)
+    assert a.ringing_hz == pytest.approx(1.1e9, rel=0.03)
