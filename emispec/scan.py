@@ -219,6 +219,8 @@ def compare(est, scan: Scan) -> Comparison:
     centre = rows.frequency_hz[row_ids]
     row_level = readings_at(board, est.lines, centre, (scan.detector,))[scan.detector].level_db if row_ids.size \
         else np.array([])
+    if scan.detector in rows.readings:  # a spread row's best point, where its band reads most
+        row_level = np.fmax(row_level, rows.readings[scan.detector][row_ids])
     row_level = np.where(np.isfinite(row_level), row_level, -np.inf)
     # peaks x rows: how far each harmonic's band lies from each peak, and whether that is close enough
     tol = match_tolerance_hz(peak_hz, f_scan)
