@@ -824,14 +824,15 @@ def _ibis_command(path: Path, name: str | None, json_path: str | None, out_dir: 
 
 def _scan(path: Path, limit, detector, unit, frequency_unit, corrections, distance):
     """A scan file read and referred to the limit (unit, corrections, distance)."""
-    from .readers import read_scan
+    from .readers import FREQUENCY_UNITS, read_scan
+    from .receiver import DETECTORS
     from .scan import prepare
     from .trace import Trace
     from .units import QuantityError, parse_quantity
 
-    if detector is not None and detector.upper() not in ("PK", "QP", "AV", "RMS-AV"):
-        raise OptionError(f"--detector {detector!r}: allowed: PK, QP, AV, RMS-AV")
-    if frequency_unit is not None and frequency_unit.lower() not in ("hz", "khz", "mhz", "ghz"):
+    if detector is not None and detector.upper() not in DETECTORS:
+        raise OptionError(f"--detector {detector!r}: allowed: {', '.join(DETECTORS)}")
+    if frequency_unit is not None and frequency_unit.lower() not in FREQUENCY_UNITS:
         raise OptionError(f"--frequency-unit {frequency_unit!r}: allowed: Hz, kHz, MHz, GHz")
     try:
         distance_m = parse_quantity(distance, "length") if distance is not None else None
@@ -940,7 +941,7 @@ def fit_command(
     from .parameters import Template, edited_board_text, key_label, raw_value, written_like
     from .pipeline import estimate
     from .readers import read_text
-    from .report import compare_files, fit_dict
+    from .report import fit_dict, scan_png
     from .scan import fit
 
     if len(set(free)) != len(free):
@@ -956,10 +957,9 @@ def fit_command(
         write_file(json_path, text)
     if out_dir is not None:
         fitted = estimate(template.board_at(values), budget=budget)
-        files = {"fitted.toml": lambda: edited_board_text(read_text(board, "board file").text, values,
-                                                          str(board)),
-                 "fit.json": lambda: text}
-        files["fit.png"] = compare_files(nominal, result.before, fitted=fitted)["compare.png"]
+        files = {"fitted.toml": lambda: edited_board_text(read_text(board, "board file").text, values, str(board)),
+                 "fit.json": lambda: text,
+                 "fit.png": lambda: scan_png(nominal, result.before, fitted)}
         for path in write_set(out_dir, files):
             (err if json_path == "-" else out).print(f"wrote {path}", markup=False)
     if json_path == "-":

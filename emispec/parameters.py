@@ -258,15 +258,21 @@ class Template:
 _NUMBER_AND_UNIT = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
 
 
-def raw_value(data: Mapping, key: str, file: str = "<board>"):
-    """The value at ``key`` as the board file wrote it (None where it wrote none)."""
+def _table_of(data: Mapping, key: str, file: str) -> tuple[Mapping | None, str]:
+    """The table that holds the value at ``key`` (None where the file has no such table) and the value's name."""
     node = data
     segments = split_key(key, file)
     for name, selector in segments[:-1]:
         if not isinstance(node, Mapping) or name not in node:
-            return None
+            return None, segments[-1][0]
         node = node[name] if selector is None else node[name][_select(node[name], name, selector, key, file)]
-    return node.get(segments[-1][0]) if isinstance(node, Mapping) else None
+    return (node if isinstance(node, Mapping) else None), segments[-1][0]
+
+
+def raw_value(data: Mapping, key: str, file: str = "<board>"):
+    """The value at ``key`` as the board file wrote it (None where it wrote none)."""
+    table, name = _table_of(data, key, file)
+    return None if table is None else table.get(name)
 
 
 def written_like(declaration: Key, raw, value: float, digits: int = 5):
@@ -298,12 +304,8 @@ def edited_board_text(text: str, values: Mapping[str, float], file: str = "<boar
         declared = schema_key(document, key, file)
         if declared is None or not declared.numeric:
             raise BoardError(file, key, "not a numeric key of this board")
-        node = document
-        segments = split_key(key, file)
-        for name, selector in segments[:-1]:
-            if name not in node:
-                raise BoardError(file, key, f"the board file has no {name!r} here to write the value into")
-            node = node[name] if selector is None else node[name][_select(node[name], name, selector, key, file)]
-        name = segments[-1][0]
-        node[name] = written_like(declared, node.get(name), value)
+        table, name = _table_of(document, key, file)
+        if table is None:
+            raise BoardError(file, key, "the board file has no table here to write the value into")
+        table[name] = written_like(declared, table.get(name), value)
     return tomlkit.dumps(document)

@@ -51,6 +51,7 @@ __all__ = [
     "ScanData",
     "read_scan",
     "SCAN_UNITS",
+    "FREQUENCY_UNITS",
 ]
 
 #: Largest file emispec reads (board, limit, table, Touchstone) [bytes].
@@ -450,7 +451,8 @@ class ScanData:
 
 
 _FREQUENCY_NAMES = ("frequency", "freq", "f")
-_FREQUENCY_UNITS = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9}
+#: Frequency units a scan's header (or --frequency-unit) may name, in lower case.
+FREQUENCY_UNITS = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9}
 #: Detector names a scan's header may carry, in lower case without spaces, dashes or underscores.
 _DETECTOR_WORDS = {"pk": "PK", "peak": "PK", "maxpeak": "PK", "qp": "QP", "quasipeak": "QP", "av": "AV",
                    "avg": "AV", "average": "AV", "cav": "AV", "rmsav": "RMS-AV", "rmsaverage": "RMS-AV"}
@@ -534,10 +536,10 @@ def read_scan(path: str | Path, detector: str | None = None, unit: str | None = 
         names = header
         inside = header[0][len(header[0].split("[")[0].split("(")[0]):].strip("[]() ").lower()
         scale_name = inside or (frequency_unit or "Hz").lower()
-    if scale_name not in _FREQUENCY_UNITS:
+    if scale_name not in FREQUENCY_UNITS:
         raise FileError(file, f"line {header_line or rows[0][0]}", f"frequency unit {scale_name!r}; expected Hz, "
                         "kHz, MHz or GHz")
-    frequency = table[:, 0] * _FREQUENCY_UNITS[scale_name]
+    frequency = table[:, 0] * FREQUENCY_UNITS[scale_name]
     levels, units = {}, set()
     for k in range(1, table.shape[1]):
         named = _detector_of(names[k])

@@ -35,7 +35,7 @@ __all__ = [
     "markdown_text", "output_files", "write_outputs", "plan_csv_text", "plan_markdown_text", "variants_rows",
     "variants_csv_text", "html_text", "RISK_SCHEMA", "risk_dict", "risk_json_text", "risk_csv_text",
     "risk_samples_csv_text", "risk_files", "COMPARE_SCHEMA", "FIT_SCHEMA", "compare_dict", "compare_csv_text",
-    "compare_files", "fit_dict",
+    "compare_files", "scan_png", "fit_dict",
 ]
 
 SCHEMA = "emispec.result/1"
@@ -762,18 +762,20 @@ def compare_csv_text(c) -> str:
     return _csv(head, lines)
 
 
-def compare_files(est: Estimate, c, prefix: str = "compare", fitted: Estimate | None = None) -> dict:
-    """Every file ``compare --out`` writes (``fit --out`` adds its own): name -> function giving its contents."""
+def scan_png(est: Estimate, c, fitted: Estimate | None = None) -> bytes:
+    """The overlay of a scan on the prediction (and on the fitted board's, when given) as PNG bytes."""
     from .plot import png_bytes, scan_figure
 
-    def figure():
-        detectors = tuple(c.scan.traces)
-        fitted_swept = swept_spectrum(fitted, detectors) if fitted is not None else None
-        return png_bytes(scan_figure(est, c, swept_spectrum(est, detectors), fitted_swept))
+    detectors = tuple(c.scan.traces)
+    fitted_swept = swept_spectrum(fitted, detectors) if fitted is not None else None
+    return png_bytes(scan_figure(est, c, swept_spectrum(est, detectors), fitted_swept))
 
-    return {f"{prefix}.json": lambda: json.dumps(compare_dict(c), indent=1, allow_nan=False) + "\n",
-            f"{prefix}-peaks.csv": lambda: compare_csv_text(c),
-            f"{prefix}.png": figure}
+
+def compare_files(est: Estimate, c) -> dict:
+    """Every file ``compare --out`` writes: name -> function giving its contents."""
+    return {"compare.json": lambda: json.dumps(compare_dict(c), indent=1, allow_nan=False) + "\n",
+            "compare-peaks.csv": lambda: compare_csv_text(c),
+            "compare.png": lambda: scan_png(est, c)}
 
 
 def fit_dict(result) -> dict:

@@ -30,8 +30,8 @@ class here (or in its own module) registered in that table.
 from __future__ import annotations
 
 import difflib
-from pathlib import Path
 from dataclasses import dataclass
+from pathlib import Path
 from typing import ClassVar, Protocol
 
 import numpy as np
@@ -44,11 +44,11 @@ from .readers import FileError
 from .schema import Key, TableReader
 from .spread import Spread
 from .waveform import (EDGE_FRACTION, EDGE_SHAPES, Trapezoid, WaveformError, edge_parameter, full_edge_time,
-                       harmonic_phasors,
-                       shaped_phasors, spectrum_envelope, supply_current_bound,
+                       harmonic_phasors, shaped_phasors, spectrum_envelope, supply_current_bound,
                        supply_current_phasors, triangle_pulse_envelope, triangle_pulse_phasors)
 
-__all__ = ["Source", "Clock", "CapturedClock", "Current", "EXTRAPOLATED", "SOURCE_SECTIONS", "BoardContext", "QUANTITIES", "MODES"]
+__all__ = ["Source", "Clock", "CapturedClock", "Current", "EXTRAPOLATED", "SOURCE_SECTIONS", "BoardContext",
+           "QUANTITIES", "MODES"]
 
 
 @dataclass(frozen=True)
@@ -111,7 +111,7 @@ def _path_names(r: TableReader, paths: dict) -> tuple[str, ...]:
 
 
 def _load(r: TableReader) -> tuple[float | None, float | None]:
-    """A clock's series R + C load; checks that every path that reads the clock current has one."""
+    """A clock's series R + C load (None, None without a ``load`` key)."""
     resistance = capacitance = None
     if r.has("load"):
         load = r.reader("load", r.keys["load"].schema)
@@ -122,6 +122,7 @@ def _load(r: TableReader) -> tuple[float | None, float | None]:
 
 
 def _check_load(r: TableReader, ctx: BoardContext, names, resistance, capacitance) -> None:
+    """Every path that reads the clock current needs a load."""
     for p in names:
         if ctx.paths[p].input in ("current", "escape") and resistance is None and capacitance is None:
             raise r.error("load", f"missing; path {p!r} needs the clock current, which needs a load")
@@ -358,10 +359,12 @@ class CapturedClock:
     combine: str = "power"
     file: str = ""
 
+    # the fitted trapezoid's linear edges: the load, rail and bound code of Clock applies as it is
+    edge_shape = "linear"
     has_load = Clock.has_load
+    _edges = Clock._edges
     _load_phasor = Clock._load_phasor
     _supply = Clock._supply
-    edge_shape = "linear"
 
     @property
     def frequency_hz(self) -> float:
@@ -370,9 +373,6 @@ class CapturedClock:
     @property
     def limit(self) -> int:
         return len(self.measured)
-
-    def _edges(self) -> tuple[float, float]:
-        return self.wave.rise_s, self.wave.fall_s
 
     def _envelope(self, f) -> np.ndarray:
         return spectrum_envelope(self.wave, f)
@@ -388,19 +388,15 @@ class CapturedClock:
         return {"voltage": voltage, "current": voltage * self._load_phasor(f), "rail": self._supply(n) / np.sqrt(2)}
 
     def bounds(self, frequency_hz) -> dict[str, np.ndarray]:
-        """The trapezoid's envelope, raised up to the limit by the nearest harmonic's neighbourhood excess (RMS)."""
+        """The fitted trapezoid's bounds (:meth:`Clock.bounds`), its voltage and load current raised up to the
+        limit by the nearest harmonic's neighbourhood excess (RMS)."""
         f = np.asarray(frequency_hz, dtype=float)
         m = np.arange(1, self.limit + 1)
         ratio = np.maximum(1.0, neighbourhood_ratio(self.measured, self._envelope(m * self.frequency_hz)))
         n = np.rint(f / self.frequency_hz).astype(int)
         scale = np.where(n <= self.limit, ratio[np.clip(n, 1, self.limit) - 1], 1.0)
-        voltage = self._envelope(f) * scale / np.sqrt(2)
-        if self.has_load:
-            rail = supply_current_bound(self.wave, f, self.load_resistance_ohm, self.load_capacitance_f, "linear",
-                                        self.wave.rise_s, min(self._edges())) / np.sqrt(2)
-        else:
-            rail = np.full(f.shape, np.nan)
-        return {"voltage": voltage, "current": voltage * np.abs(self._load_phasor(f)), "rail": rail}
+        trapezoid = Clock.bounds(self, f)
+        return {**trapezoid, "voltage": trapezoid["voltage"] * scale, "current": trapezoid["current"] * scale}
 
     harmonics = Clock.harmonics
 
