@@ -101,17 +101,22 @@ def spectrum_figure(est: Estimate, envelopes: dict[str, Trace]):
 
 def _finish(fig, ax, est: Estimate, what: str) -> None:
     lo, hi = est.span_hz
-    ax.set_xscale("log")
+    _mhz_axis(ax)
     ax.set_xlim(lo, hi)
-    ax.xaxis.set_major_locator(matplotlib.ticker.LogLocator(subs=(1.0, 2.0, 5.0)))
-    ax.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda x, _: f"{x / 1e6:g}"))
-    ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
-    ax.set_xlabel("Frequency [MHz]")
     ax.set_ylabel(f"Reading [{est.board.limit.unit}]")
     ax.set_title(f"{est.board.title}: {what} against {est.board.limit.name}\n{verdict_text(est.outcome)}", fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
     _legend(fig, ax)
     fig.text(0.01, 0.005, CAUTION_SHORT, fontsize=7)
+
+
+def _mhz_axis(ax) -> None:
+    """A log frequency axis in Hz labelled in MHz at 1, 2, 5 per decade (plain numbers, no mathtext)."""
+    ax.set_xscale("log")
+    ax.xaxis.set_major_locator(matplotlib.ticker.LogLocator(subs=(1.0, 2.0, 5.0)))
+    ax.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda x, _: f"{x / 1e6:g}"))
+    ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
+    ax.set_xlabel("Frequency [MHz]")
 
 
 def _legend(fig, ax) -> None:
@@ -309,24 +314,24 @@ def svg_text(figure) -> str:
 def waveform_figure(summary: dict):
     """A capture's harmonics against its fitted trapezoid's (RMS dBuV), from ``emispec.waveform/1``."""
     rows = summary["harmonics"]
-    f = np.array([h["frequency_hz"] for h in rows]) / 1e6
+    f = np.array([h["frequency_hz"] for h in rows])
     level = np.array([np.nan if h["level_dbuv"] is None else h["level_dbuv"] for h in rows])
     trapezoid = np.array([np.nan if h["trapezoid_dbuv"] is None else h["trapezoid_dbuv"] for h in rows])
     fig, ax = plt.subplots(figsize=(8, 4.5), layout="constrained")
-    ax.semilogx(f, trapezoid, "s", mfc="none", color=SOURCE_COLORS[1], label="fitted trapezoid")
-    ax.semilogx(f, level, "o", ms=4, color=SOURCE_COLORS[0], label="capture")
+    ax.plot(f, trapezoid, "s", mfc="none", color=SOURCE_COLORS[1], label="fitted trapezoid")
+    ax.plot(f, level, "o", ms=4, color=SOURCE_COLORS[0], label="capture")
     if summary["noise_floor_dbuv"] is not None:
         ax.axhline(summary["noise_floor_dbuv"], color="#999999", ls=":", label="capture's noise floor")
     if summary["ringing_hz"]:
-        ax.axvline(summary["ringing_hz"] / 1e6, color=SOURCE_COLORS[2], ls="--",
+        ax.axvline(summary["ringing_hz"], color=SOURCE_COLORS[2], ls="--",
                    label=f"ringing {summary['ringing_hz'] / 1e6:.4g} MHz")
-    ax.set_xlabel("frequency [MHz]")
+    _mhz_axis(ax)
     ax.set_ylabel("harmonic [dBuV, RMS]")
     ax.set_title(f"{summary['file']} ({summary['column']}): harmonics up to the capture's limit, "
                  f"{summary['limit_hz'] / 1e6:.4g} MHz", fontsize=9)
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=8)
-    fig.text(0.99, 0.005, CAUTION_SHORT, ha="right", va="bottom", fontsize=7, color="#666666")
+    fig.text(0.01, 0.005, CAUTION_SHORT, fontsize=7)
     return fig
 
 
