@@ -65,27 +65,6 @@ FFT_WORKERS = -1
 THREADED_FFT_CELLS = 1 << 20
 
 
-def _smooth_numbers(limit: int = 1 << 26) -> np.ndarray:
-    """Every 11-smooth number (2^a 3^b 5^c 7^d 11^e) up to ``limit``, ascending."""
-    values = np.array([1], dtype=np.int64)
-    for prime in (2, 3, 5, 7, 11):
-        powers = prime ** np.arange(int(np.log(limit) / np.log(prime)) + 1, dtype=np.int64)
-        values = np.outer(values, powers).ravel()
-        values = values[values <= limit]
-    return np.sort(values)
-
-
-_SMOOTH: np.ndarray | None = None
-
-
-def next_fast_len(n: int) -> int:
-    """The smallest 11-smooth number >= n: the FFT lengths pocketfft transforms fastest (scipy.fft.next_fast_len)."""
-    global _SMOOTH
-    if _SMOOTH is None:
-        _SMOOTH = _smooth_numbers()
-    return int(_SMOOTH[np.searchsorted(_SMOOTH, n)])
-
-
 def _ifft_rows(spectrum: np.ndarray) -> np.ndarray:
     if spectrum.size >= THREADED_FFT_CELLS:
         import scipy.fft  # threads pay off on large batches
@@ -402,19 +381,35 @@ def sweep(line_hz, line_amplitude, grid_hz: float, tuning_hz, detectors, max_cel
         lo = np.searchsorted(line_hz, tuning[rows] - reach, side="left")
         hi = np.searchsorted(line_hz, tuning[rows] + reach, side="right")
         count = hi - lo
-        # group tuning points by how many lines they reach (steps of 1/8 of a power of two, so
-        # little padding is computed), one vectorised pass per group
+        live = count > 0
+        # each point's envelope length follows from its own lines only, so a point reads the same whatever it is
+        # batched with (a memo of readings relies on it); one pass per length and number of lines reached (in
+        # steps of 1/8 of a power of two, so little padding is computed)
+        first, last = np.minimum(lo, line_hz.size - 1), np.minimum(np.maximum(hi - 1, lo), line_hz.size - 1)
+        span = np.rint((line_hz[last] - line_hz[first]) / grid_hz).astype(np.int64) + 1
+        qp = "QP" in detectors and DETECTORS["QP"].available(band)
+        n_fft = _envelope_length(span, OVERSAMPLING["QP" if qp else "other"])
         need = np.maximum(count, 1)
         step = np.maximum(2 ** np.floor(np.log2(need)) / 8, 1)
-        sizes = (np.ceil(need / step) * step).astype(int)
-        for size in np.unique(sizes[count > 0]):
-            pick = (count > 0) & (sizes == size)
-            for chunk in _chunks(np.flatnonzero(pick), max_cells // (8 * size)):
-                values = _sweep_rows(line_hz, amp, grid_hz, tuning[rows[chunk]], lo[chunk], count[chunk],
-                                     size, band, detectors)
+        sizes = (np.ceil(need / step) * step).astype(np.int64)
+        group = np.where(live, sizes << 32 | n_fft, -1)
+        for key in np.unique(group[live]):
+            size, length = int(key >> 32), int(key & 0xFFFFFFFF)
+            for chunk in _chunks(np.flatnonzero(group == key), max_cells // (8 * length)):
+                values = _sweep_rows(line_hz, amp, grid_hz, tuning[rows[chunk]], lo[chunk], count[chunk], size,
+                                     length, band, detectors)
                 for det in detectors:
                     out[det][rows[chunk]] = values[det]
     return out
+
+
+def _envelope_length(span: np.ndarray, oversampling: int) -> np.ndarray:
+    """Envelope samples for lines spanning ``span`` grid points: at least ``oversampling`` per point and 32, rounded
+    up to 1, 1.25, 1.5 or 1.75 times a power of two (lengths pocketfft transforms fast; few distinct ones, so few
+    passes, for at most 25 % more samples than needed)."""
+    need = np.maximum(32, oversampling * np.asarray(span, dtype=np.int64))
+    power = 2 ** np.floor(np.log2(need)).astype(np.int64)
+    return -(-4 * need // power) * power // 4
 
 
 def _chunks(index: np.ndarray, rows: int):
@@ -422,8 +417,8 @@ def _chunks(index: np.ndarray, rows: int):
     return [index[i:i + rows] for i in range(0, index.size, rows)]
 
 
-def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, band, detectors):
-    """Envelopes and readings for tuning points that each reach at most ``width`` lines."""
+def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, n_fft, band, detectors):
+    """Envelopes (``n_fft`` samples) and readings for tuning points that each reach at most ``width`` lines."""
     col = np.arange(width)
     present = col[None, :] < count[:, None]
     idx = np.where(present, lo[:, None] + col[None, :], lo[:, None])
@@ -435,10 +430,6 @@ def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, band, detectors
     gain = filter_response(((freq - tuning[:, None]) / band.rbw_hz).astype(np.float32), 1.0)
     weights = np.where(present, amp[idx].astype(np.complex64) * gain, np.complex64(0))
     bins = np.rint((freq - freq[:, :1]) / grid_hz).astype(np.int64)
-    span = int(bins.max()) + 1
-    # 4x oversampled envelope; the peak is refined between samples (_peak_refined)
-    qp = "QP" in detectors and DETECTORS["QP"].available(band)
-    n_fft = next_fast_len(max(32, OVERSAMPLING["QP" if qp else "other"] * span))
     # padding cells go to an extra column that is dropped before the transform
     bins = np.where(present, bins, n_fft)
     rows = np.arange(tuning.size)[:, None]
