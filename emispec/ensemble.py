@@ -34,13 +34,30 @@ from .pipeline import Estimate, Reuse, estimate
 __all__ = ["Ensemble", "EnsembleResult", "evaluate", "gather", "process_pool", "dask_client"]
 
 
+_LOCAL = threading.local()
+
+
+def _worker_reuse(template: Template) -> tuple[Template, Reuse]:
+    """The template this worker thread already holds for the same board file (with its parsed entries) and one
+    :class:`emispec.pipeline.Reuse`, both kept from job to job: the values of one key recur across the jobs of
+    a cross product, and so do the lines and readings of the sources only that key changes.  Every job carries
+    its own copy of the template; without this, each copy's entries would be new objects, found in no memo."""
+    if getattr(_LOCAL, "reuse", None) is None:
+        _LOCAL.reuse, _LOCAL.templates = Reuse(), {}
+    if template.sha256:
+        if len(_LOCAL.templates) >= 8:
+            _LOCAL.templates.clear()
+        template = _LOCAL.templates.setdefault((template.file, str(template.base_dir), template.sha256), template)
+    return template, _LOCAL.reuse
+
+
 def _evaluate_chunk(template: Template, members: Sequence[Mapping], si: bool) -> list[Estimate]:
     """Estimate each member; line spectra are dropped to keep many estimates in memory.
 
     Members share the work on the sources they do not change (see :class:`emispec.pipeline.Reuse`).
     """
+    template, reuse = _worker_reuse(template)
     build = template.board_at if si else template.board
-    reuse = Reuse()
     return [dataclasses.replace(estimate(build(member), reuse), lines=()) for member in members]
 
 

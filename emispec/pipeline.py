@@ -32,6 +32,7 @@ what the plots and the report draw, so that those only format.
 
 from __future__ import annotations
 
+from collections import OrderedDict
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -42,7 +43,7 @@ from .coupling import common_mode_current
 from .decoupling import ABOVE_TARGET, DECOUPLING_INSUFFICIENT, NEAR_ANTI_RESONANCE, impedance_for_escape, rail_summary
 from .flags import declare
 from .limits import upper_frequency_hz
-from .readings import PASSES, combine, read_rows, row_max
+from .readings import PASSES, combine, read_rows, row_max, sweep_lines
 from .receiver import BANDS, REACH_RBW, repeats_fast, band_index, resolution_bandwidth_hz, sweep
 from .rows import Rows, Verdict, Worst, assemble_rows
 from .sources import Source
@@ -275,25 +276,73 @@ class _SourcePart:
 class Reuse:
     """Work shared by estimates of many boards built from one template (see :mod:`emispec.ensemble`).
 
-    A source whose entry, paths, rail and limit are the same objects as in an
-    earlier board has the same harmonics, path gains and line spectrum; they
-    are looked up here instead of computed again.  Results are identical to
-    estimates without it.
+    A source equal to one of an earlier board, with the same path, rail and
+    limit objects, has the same harmonics, path gains and line spectrum; they
+    are looked up here instead of computed again.  Sources compare by value,
+    so one that comes back (a value of one key recurring while another key
+    varies) finds its lines again.  What the receiver reads of a source's
+    spread lines at each tuning frequency is kept too, so those lines are read
+    only at points they were not read at before.  A point's reading depends on
+    nothing but the lines and the point (:func:`emispec.receiver.sweep`), so
+    results are identical to estimates without it.
     """
 
     def __init__(self, size: int = 64) -> None:
         self.size = size
-        self._parts: dict = {}
+        self._parts: OrderedDict = OrderedDict()
+        self._readings: OrderedDict = OrderedDict()  # (id(lines), detectors) -> [lines, sorted points, readings]
+
+    def _recent(self, memo: OrderedDict, key, build):
+        """``memo[key]``, built on a miss; the least recently used entry goes when the memo is full."""
+        if key in memo:
+            memo.move_to_end(key)
+            return memo[key]
+        if len(memo) >= self.size:
+            memo.popitem(last=False)
+        memo[key] = value = build()
+        return value
 
     def part(self, board: Board, source: Source, lo: float, hi: float) -> _SourcePart:
-        deps = (source, board.limit, board.rails.get(source.rail), *(board.paths[p] for p in source.paths))
-        key = (tuple(id(d) for d in deps), lo, hi)
-        hit = self._parts.get(key)
-        if hit is None:
-            if len(self._parts) >= self.size:
-                self._parts.pop(next(iter(self._parts)))
-            hit = self._parts[key] = (deps, _source_part(board, source, lo, hi))
-        return hit[1]
+        deps = (board.limit, board.rails.get(source.rail), *(board.paths[p] for p in source.paths))
+        key = (_value_key(source), tuple(id(d) for d in deps), lo, hi)
+        # the entry holds what its key names by identity, so no id is reused while it lives
+        return self._recent(self._parts, key, lambda: (source, deps, _source_part(board, source, lo, hi)))[2]
+
+    def read(self, lines: SourceLines, points: np.ndarray, detectors) -> dict[str, np.ndarray]:
+        """What each detector reads of ``lines`` at ``points``, as :func:`emispec.readings.sweep_lines` returns
+        it (remembered for spread lines, whose readings are the costly ones)."""
+        if not lines.modulated:
+            return sweep_lines(lines, points, detectors)
+        detectors = tuple(detectors)
+        entry = self._recent(self._readings, (id(lines), detectors),
+                             lambda: [lines, np.array([]), {d: np.array([]) for d in detectors}])
+        _, known, values = entry
+        order = np.argsort(points, kind="stable")
+        sorted_points = points[order]
+        where = np.minimum(np.searchsorted(known, sorted_points), max(known.size - 1, 0))
+        seen = (known[where] == sorted_points) if known.size else np.zeros(points.size, bool)
+        new = np.unique(sorted_points[~seen])
+        if new.size:
+            fresh = sweep_lines(lines, new, detectors)
+            at = np.searchsorted(known, new)  # both sorted: inserting keeps the order without sorting again
+            entry[1] = known = np.insert(known, at, new)
+            entry[2] = values = {d: np.insert(values[d], at, fresh[d]) for d in detectors}
+            where = np.searchsorted(known, sorted_points)
+        out = {}
+        for d in detectors:
+            out[d] = np.empty(points.size)
+            out[d][order] = values[d][where]
+        return out
+
+
+def _value_key(source: Source):
+    """A source by its values where it can be hashed (a value that comes back finds its part again), else by
+    identity."""
+    try:
+        hash(source)
+    except TypeError:
+        return ("id", id(source))
+    return source
 
 
 def _phase(harmonics: dict[str, np.ndarray]) -> np.ndarray:
@@ -575,7 +624,7 @@ def read_board(board: Board, reuse: Reuse | None = None, step=None, budget: floa
         parts.append(reuse.part(board, source, lo, hi) if reuse is not None else _source_part(board, source, lo, hi))
         step()
     read = read_rows([p.lines for p in parts], [p.lines.reference for p in parts], [tuning_of(p) for p in parts],
-                     board.limit.detectors, step)
+                     board.limit.detectors, step, reader=reuse.read if reuse is not None else None)
     return Stage(board, (lo, hi), parts, read)
 
 

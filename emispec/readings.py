@@ -121,16 +121,17 @@ def row_best(values: np.ndarray, owner: np.ndarray, rows: int) -> tuple[np.ndarr
     return value, np.where(np.isnan(value), -1, index)
 
 
-def _read(lines, references, points: np.ndarray, detectors):
-    per_source = [sweep(s.line_hz, s.line_amplitude, s.grid_hz, points, detectors) for s in lines]
-    return per_source, combine(per_source, references, detectors)
+def sweep_lines(lines, points: np.ndarray, detectors) -> dict[str, np.ndarray]:
+    """What each detector reads of one source's lines at the points (:func:`emispec.receiver.sweep`)."""
+    return sweep(lines.line_hz, lines.line_amplitude, lines.grid_hz, points, detectors)
 
 
-def _read_all(lines, references, batches: list[tuple[np.ndarray, np.ndarray]], detectors):
+def _read_all(lines, references, batches: list[tuple[np.ndarray, np.ndarray]], detectors, reader):
     """Read every part's new points in one pass per source; returns per part (per_source, combined)."""
     sizes = [p.size for p, _ in batches]
     points = np.concatenate([p for p, _ in batches]) if batches else np.array([])
-    per_source, combined = _read(lines, references, points, detectors)
+    per_source = [reader(s, points, detectors) for s in lines]
+    combined = combine(per_source, references, detectors)
     cuts = np.cumsum([0] + sizes)
     return [([{d: v[d][a:b] for d in detectors} for v in per_source], {d: combined[d][a:b] for d in detectors})
             for a, b in zip(cuts[:-1], cuts[1:])]
@@ -205,7 +206,7 @@ def _inside(rows: RowReadings, points: np.ndarray, owner: np.ndarray):
 PASSES = 2 + len(SEARCH_STEPS)
 
 
-def read_rows(lines, references, tunings, detectors, progress=None) -> list[RowReadings]:
+def read_rows(lines, references, tunings, detectors, progress=None, reader=None) -> list[RowReadings]:
     """Read every source's rows.
 
     Parameters
@@ -221,11 +222,15 @@ def read_rows(lines, references, tunings, detectors, progress=None) -> list[RowR
     detectors : tuple of str
     progress : callable, optional
         Called with no argument after each pass (at most :data:`PASSES`).
+    reader : callable, optional
+        ``reader(lines, points, detectors)``: what one source's lines read at the points (default
+        :func:`sweep_lines`; :meth:`emispec.pipeline.Reuse.read` remembers readings across boards).
     """
+    reader = reader or sweep_lines
     rows = [RowReadings(len(t["lo_hz"]), t["points"], t["owner"], t["lo_hz"], t["hi_hz"], t["rbw_hz"], t["searched"],
                         [], {}, k) for k, t in enumerate(tunings)]
     for part, (per_source, combined) in zip(rows, _read_all(lines, references, [(r.points, r.owner) for r in rows],
-                                                            detectors)):
+                                                            detectors, reader)):
         part.per_source, part.combined = per_source, combined
     if progress is not None:
         progress()
@@ -235,7 +240,7 @@ def read_rows(lines, references, tunings, detectors, progress=None) -> list[RowR
         if not any(p.size for p, _ in batches):
             break
         for part, batch, (per_source, combined) in zip(rows, batches, _read_all(lines, references, batches,
-                                                                                 detectors)):
+                                                                                 detectors, reader)):
             part.extend(batch[0], batch[1], per_source, combined)
         if progress is not None:
             progress()

@@ -76,3 +76,24 @@ def test_reuse_keeps_an_estimate_unchanged(template):
     second = estimate(template.board({"clock[lcd_pclk].rise_time": "5 ns"}), reuse)
     same(first, estimate(template.nominal))
     same(second, estimate(template.board({"clock[lcd_pclk].rise_time": "5 ns"})))
+
+
+def test_readings_remembered_for_a_spread_value_that_comes_back(template, monkeypatch):
+    # A spread clock's deviation recurring while another key varies: its lines are found again and read
+    # from memory at every tuning point seen before; the numbers must not move.
+    from emispec import pipeline
+
+    read = []
+    real = pipeline.sweep_lines
+    monkeypatch.setattr(pipeline, "sweep_lines", lambda lines, points, d: read.append(
+        points.size if lines.modulated else 0) or real(lines, points, d))
+    key, other = "clock[sdram_clk].spread.deviation", "clock[lcd_pclk].rise_time"
+    members = [{key: "0.5 %", other: "3 ns"}, {key: "1 %", other: "5 ns"}, {key: "0.5 %", other: "5 ns"}]
+    reuse = Reuse()
+    estimates = []
+    for member in members:
+        read.clear()
+        estimates.append(estimate(template.board(member), reuse))
+        points = sum(read)
+    assert points == 0  # the third board's spread lines: every point from memory (sweep_lines is not called)
+    same(estimates[2], estimate(template.board(members[2])))
