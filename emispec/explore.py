@@ -16,7 +16,7 @@ import numpy as np
 
 from .ensemble import Ensemble
 from .parameters import Template, key_label, scope_of
-from .pipeline import Estimate, estimate
+from .pipeline import Estimate, Reuse, estimate
 from .schema import BoardError
 from .units import QuantityError, parse_quantity
 
@@ -227,11 +227,12 @@ def solve(template: Template, key: str, low: str, high: str, points: int = 17, t
     if scope == "auto":
         scope = scope_of(key)
     cache: dict[float, Estimate] = {}
+    reuse = Reuse()  # the sources the key does not touch are computed and read once
 
     def run(v):
         v = float(round(v)) if integer else float(v)
         if v not in cache:
-            cache[v] = estimate(template.board_at({key: to_si(v)}))
+            cache[v] = estimate(template.board_at({key: to_si(v)}), reuse)
             if progress is not None:
                 progress()
         return cache[v]
