@@ -26,6 +26,7 @@ from typing import ClassVar, Protocol
 
 import numpy as np
 
+from .antenna import Wire, on_grid
 from .constants import C, MU_0
 from .decoupling import lisn_impedance
 from .flags import declare
@@ -42,6 +43,7 @@ __all__ = [
     "Path",
     "LoopPath",
     "CablePath",
+    "AntennaCable",
     "TransferPath",
     "ConductedPath",
     "COMMON_MODE_OHM",
@@ -254,8 +256,17 @@ class CablePath:
     SERVES: ClassVar[tuple[str, ...]] = ("radiated",)
     KEYS: ClassVar[tuple[Key, ...]] = (
         _NAME, _KIND, Key("length", "length", required=True, low=0.0, high=1e3),
-        Key("drive", "choice", default="ratio", choices=("ratio", "escape")),
+        Key("model", "choice", default="short", choices=("short", "antenna")),
+        Key("drive", "choice", choices=("ratio", "escape", "voltage", "table")),
         Key("ratio", "gain"), _DISTANCE, _REFLECTION, _TERMINATION,
+        # model = "antenna" only (AntennaCable)
+        Key("diameter", "length", default=5e-3, low=0.0, high=0.2),
+        Key("geometry", "choice", default="monopole", choices=("monopole", "dipole")),
+        Key("gain", "any"),
+        Key("return_inductance", "inductance", low=0.0, high=1e-3),
+        Key("ferrite", "table", schema=(Key("resistance", "resistance", low=0.0, high=1e6, low_open=False),
+                                        Key("inductance", "inductance", low=0.0, high=1e-3, low_open=False),
+                                        Key("impedance", "any"))),
     )
 
     name: str
@@ -285,9 +296,17 @@ class CablePath:
         return {NEAR_FIELD: near_field(frequency_hz, self.distance_m or limit_distance_m)}
 
     @classmethod
-    def from_table(cls, r: TableReader, limit) -> CablePath:
+    def from_table(cls, r: TableReader, limit) -> CablePath | AntennaCable:
+        if r.get("model") == "antenna":
+            return AntennaCable.from_table(r, limit)
+        for key in _ANTENNA_ONLY:
+            if r.has(key):
+                raise r.error(key, "only with model = 'antenna'")
         distance = _distance(r, limit)
-        drive = r.get("drive")
+        drive = r.get("drive") or "ratio"
+        if drive not in ("ratio", "escape"):
+            raise r.error("drive", "the short model takes 'ratio' or 'escape'; 'voltage' and 'table' need "
+                          "model = 'antenna'", drive)
         length = r.get("length")
         reflection = _reflection(r)
         if drive == "ratio" and r.has("termination"):
@@ -299,6 +318,158 @@ class CablePath:
         if drive == "escape":
             return cls(r.get("name"), length, ratio, distance, reflection, r.get("termination"), drive="escape")
         return cls(r.get("name"), length, ratio, distance, reflection)
+
+
+_ANTENNA_ONLY = ("diameter", "geometry", "gain", "return_inductance", "ferrite")
+
+
+@dataclass(frozen=True)
+class AntennaCable:
+    """An attached cable as a thin wire antenna (``kind = "cable"``, ``model = "antenna"``).
+
+    A common-mode voltage at the cable's connector drives the wire
+    (:class:`emispec.antenna.Wire`) through the ``ferrite`` in series; the
+    current at the base is the common-mode current, and the field is the
+    wire's at the limit's distance.  The voltage is
+
+    - ``drive = "voltage"``: ``ratio`` times the source's voltage harmonic;
+    - ``drive = "table"``: the ``gain`` table (dB, against frequency) times it;
+    - ``drive = "escape"``: the rail current that escapes the decoupling
+      through the return path's ``return_inductance``, times omega L.
+    """
+
+    KIND: ClassVar[str] = "cable"
+
+    name: str
+    wire: Wire
+    drive: str = "voltage"
+    ratio: float = 1.0
+    gain: Trace | None = None
+    return_inductance_h: float = 0.0
+    ferrite_ohm: float = 0.0
+    ferrite_h: float = 0.0
+    ferrite_table: Trace | None = None
+    distance_m: float | None = None
+    ground_reflection: bool | str = "auto"
+
+    @property
+    def length_m(self) -> float:
+        return self.wire.length_m
+
+    @property
+    def input(self) -> str:
+        return "escape" if self.drive == "escape" else "voltage"
+
+    def termination(self, frequency_hz) -> np.ndarray:
+        """What the escaping rail current flows through: the return path's inductance."""
+        return 2j * np.pi * np.asarray(frequency_hz, dtype=float) * self.return_inductance_h
+
+    def drive_per_unit(self, frequency_hz) -> np.ndarray:
+        """Common-mode voltage per unit of the source quantity (V/V, or V/A for an escaping current)."""
+        f = np.asarray(frequency_hz, dtype=float)
+        if self.drive == "escape":
+            return 2 * np.pi * f * self.return_inductance_h
+        if self.drive == "table":
+            return 10.0 ** (self.gain.at(f) / 20.0)
+        return np.full(f.shape, self.ratio)
+
+    def series_ohm(self, frequency_hz) -> np.ndarray:
+        """The ferrite's impedance: R + j omega L, plus a table's values read as resistance."""
+        f = np.asarray(frequency_hz, dtype=float)
+        z = self.ferrite_ohm + 2j * np.pi * f * self.ferrite_h
+        if self.ferrite_table is not None:
+            z = z + 10.0 ** (self.ferrite_table.at(f) / 20.0)
+        return z
+
+    def admittance(self, frequency_hz) -> np.ndarray:
+        """|I_base / V| [S]: the wire's input impedance in series with the ferrite."""
+        return 1.0 / np.abs(self.wire.input_impedance(frequency_hz) + self.series_ohm(frequency_hz))
+
+    def common_mode_current(self, frequency_hz, source) -> np.ndarray:
+        """The common-mode current at the cable's base [A RMS]."""
+        per_volt = on_grid(frequency_hz, self.admittance)
+        return np.asarray(source[self.input]) * self.drive_per_unit(frequency_hz) * per_volt
+
+    def field_per_volt(self, frequency_hz, limit_distance_m: float) -> np.ndarray:
+        """|E| at the limit's distance per volt of common-mode drive [V/m/V]."""
+        def response(f):
+            return self.admittance(f) * self.wire.field_per_amp(f, limit_distance_m,
+                                                                 reflection_factor(f, self.ground_reflection))
+        return on_grid(frequency_hz, response)
+
+    def reading(self, frequency_hz, source, limit_distance_m):
+        return (np.asarray(source[self.input]) * self.drive_per_unit(frequency_hz)
+                * self.field_per_volt(frequency_hz, limit_distance_m))
+
+    def flags(self, frequency_hz, limit_distance_m):
+        return {}  # the near field at the limit's distance is part of the model
+
+    def resonances_hz(self, low_hz: float, high_hz: float) -> np.ndarray:
+        return self.wire.series_resonances_hz(low_hz, high_hz)
+
+    @classmethod
+    def from_table(cls, r: TableReader, limit) -> AntennaCable:
+        if limit.measurement != "radiated":
+            raise r.error("model", "the antenna model gives a field; it needs a radiated limit")
+        if r.has("distance"):
+            raise r.error("distance", "the antenna model computes the field at the limit's distance itself")
+        if r.has("termination"):
+            raise r.error("termination", "the antenna model's escape path is its return_inductance")
+        drive = r.get("drive") or "voltage"
+        needs = {"voltage": "ratio", "table": "gain", "escape": "return_inductance", "ratio": None}
+        if needs[drive] is None:
+            raise r.error("drive", "the antenna model takes 'voltage', 'table' or 'escape' (a common-mode "
+                          "voltage drives it, not a current)", drive)
+        for key, wanted in (("ratio", "voltage"), ("gain", "table"), ("return_inductance", "escape")):
+            if r.has(key) and drive != wanted:
+                raise r.error(key, f"only with drive = '{wanted}'")
+        if not r.has(needs[drive]):
+            example = {"ratio": "'-20 dB' (the common-mode voltage relative to the source voltage)",
+                       "gain": '[["30 MHz", -30.0], ["1 GHz", -20.0]]', "return_inductance": "'5 nH'"}
+            raise r.error(needs[drive], f"missing; drive = '{drive}' needs it, e.g. {example[needs[drive]]}")
+        diameter = r.get("diameter")
+        length = r.get("length")
+        if diameter >= length / 10:
+            raise r.error("diameter", f"a thin wire is needed: at most a tenth of the length "
+                          f"({length / 10 * 1e3:g} mm)", r.table.get("diameter"))
+        resistance = inductance = 0.0
+        table = None
+        if r.has("ferrite"):
+            ferrite = r.reader("ferrite", r.keys["ferrite"].schema)
+            resistance, inductance = ferrite.get("resistance") or 0.0, ferrite.get("inductance") or 0.0
+            if ferrite.has("impedance"):
+                table = _impedance_table(ferrite, "impedance")
+            elif not (ferrite.has("resistance") or ferrite.has("inductance")):
+                raise r.error("ferrite", "give resistance and/or inductance (series R + L), or an impedance "
+                              "table, e.g. { impedance = [[\"100 MHz\", \"120 ohm\"], [\"1 GHz\", \"250 ohm\"]] }")
+        return cls(r.get("name"), Wire(length, diameter / 2, r.get("geometry")), drive,
+                   r.get("ratio") if drive == "voltage" else 1.0,
+                   _gain_table(r, "gain") if drive == "table" else None,
+                   r.get("return_inductance") if drive == "escape" else 0.0,
+                   resistance, inductance, table, None, _reflection(r))
+
+
+def _impedance_table(r: TableReader, name: str) -> Trace:
+    """A ``[[frequency, impedance], ...]`` table (|Z| in ohm, ascending frequency), kept in dB re 1 ohm."""
+    rows = r.table.get(name)
+    allowed = 'a list of [frequency, impedance] pairs in ascending frequency, e.g. [["100 MHz", "120 ohm"]]'
+    if not isinstance(rows, list) or not rows:
+        raise r.error(name, f"expected {allowed}", rows)
+    freqs, ohms = [], []
+    for k, point in enumerate(rows):
+        if not (isinstance(point, list) and len(point) == 2):
+            raise r.error(f"{name}[{k}]", f"expected {allowed}", point)
+        try:
+            freqs.append(parse_quantity(point[0], "frequency"))
+            ohms.append(parse_quantity(point[1], "resistance"))
+        except QuantityError as err:
+            raise r.error(f"{name}[{k}]", str(err), point) from None
+        if not 0 < ohms[-1] <= 1e6:
+            raise r.error(f"{name}[{k}]", "out of range; allowed: > 0 ohm and <= 1e6 ohm", point)
+    freqs_a = np.array(freqs)
+    if np.any(freqs_a <= 0) or np.any(np.diff(freqs_a) <= 0):
+        raise r.error(name, "frequencies must be > 0 Hz and strictly ascending")
+    return Trace(freqs_a, 20 * np.log10(ohms), "dBohm", outside="hold", origin=r.sub(name))
 
 
 def _gain_table(r: TableReader, name: str) -> Trace:
