@@ -467,7 +467,7 @@ def plan_command(
 ) -> None:
     """The pre-compliance test plan: what to measure first, with band, RBW, detector and expected reading."""
     from .outputs import write_set
-    from .plan import plan_rows
+    from .plan import plan_rows, resonance_lines
     from .report import plan_csv_text, plan_markdown_text
     from .units import format_quantity
 
@@ -491,6 +491,8 @@ def plan_command(
     for row in plan:
         if row["note"]:
             out.print(f"  #{row['priority']}: {row['note']}", markup=False)
+    for line in resonance_lines(result):
+        out.print(line, markup=False)
     if out_dir is not None:
         write_set(out_dir, {"testplan.csv": lambda: plan_csv_text(result, plan),
                             "testplan.md": lambda: plan_markdown_text(result, plan, passing)})

@@ -56,6 +56,9 @@ __all__ = [
     "Estimate",
     "Reuse",
     "RailView",
+    "CableView",
+    "cable_view",
+    "antenna_cables",
     "analysis_span_hz",
     "source_gains",
     "path_readings",
@@ -797,6 +800,43 @@ def envelope_traces(est: Estimate, frequency_hz) -> dict[str, Trace]:
         level = db_micro(_total_gain(path_readings(est.board, source, f, source.bounds(f)), source.combine))
         out[source.name] = Trace(f, level, est.board.limit.unit, origin="envelope")
     return out
+
+
+@dataclass(frozen=True)
+class CableView:
+    """What a cable plot shows of an antenna cable: its response per volt of common-mode drive on a grid, its
+    series resonances, and the common-mode current of every harmonic that drives it."""
+
+    name: str
+    length_m: float
+    distance_m: float
+    frequency_hz: np.ndarray
+    current_dbua_per_v: np.ndarray  # |I| at the base per volt, dB(uA/V)
+    field_dbuv_m_per_v: np.ndarray  # |E| at the limit's distance per volt, dB(uV/m per V)
+    resonances_hz: np.ndarray
+    harmonics: dict  # source name -> (frequency_hz, common-mode current dBuA)
+
+
+def antenna_cables(board: Board) -> list[str]:
+    """The board's cables modelled as antennas (the paths with resonances)."""
+    return [name for name, path in board.paths.items() if hasattr(path, "resonances_hz")]
+
+
+def cable_view(est: Estimate, name: str, points: int = 3000) -> CableView:
+    """An antenna cable's response over the analysed span and its harmonics' common-mode currents."""
+    path = est.board.paths[name]
+    lo, hi = est.span_hz
+    grid = np.geomspace(lo, hi, points)
+    distance = est.board.limit.distance_m
+    rows = est.rows
+    currents = rows.cable_current_dbua.get(name, np.full(len(rows), np.nan))
+    harmonics = {}
+    for source in est.board.sources:
+        mine = (rows.source == source.name) & np.isfinite(currents)
+        if name in source.paths and mine.any():
+            harmonics[source.name] = (rows.frequency_hz[mine], currents[mine])
+    return CableView(name, path.length_m, distance, grid, db_micro(path.admittance(grid)),
+                     db_micro(path.field_per_volt(grid, distance)), path.resonances_hz(lo, hi), harmonics)
 
 
 @dataclass(frozen=True)

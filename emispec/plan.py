@@ -4,10 +4,14 @@ from __future__ import annotations
 
 import numpy as np
 
-from .pipeline import Estimate
+from .pipeline import Estimate, antenna_cables
 from .receiver import band_names, resolution_bandwidth_hz
 
-__all__ = ["PLAN_COLUMNS", "plan_rows"]
+__all__ = ["PLAN_COLUMNS", "plan_rows", "cable_resonances", "resonance_lines"]
+
+#: A harmonic this close (relative) to an antenna cable's series resonance is said to sit on it: the current there
+#: is within about 1 dB of its peak for the resonances' Q of 5 to 10 (common practice, no source).
+NEAR_RESONANCE = 0.03
 
 
 PLAN_COLUMNS = ("priority", "source", "harmonic", "frequency_hz", "band_lo_hz", "band_hi_hz", "cispr_band", "rbw_hz",
@@ -29,6 +33,7 @@ def plan_rows(est: Estimate, everything: bool = False, top: int = 0) -> list[dic
         keep = finite & (np.cumsum(finite) <= top)  # rows are sorted worst first
     bands = band_names(r.frequency_hz)
     rbw = resolution_bandwidth_hz(r.frequency_hz)
+    resonances = cable_resonances(est)
     out = []
     for priority, i in enumerate(np.flatnonzero(keep), start=1):
         det = r.worst_detector[i]
@@ -50,6 +55,12 @@ def plan_rows(est: Estimate, everything: bool = False, top: int = 0) -> list[dic
             if cable in cables and np.isfinite(cables[cable][i]):
                 notes.append(f"current probe on {cable} at its connector (the cable's base): expect "
                              f"{cables[cable][i]:.1f} dBuA common mode")
+        for cable, hz in resonances.items():
+            if cable in est.source_paths[str(r.source[i])] and hz.size:
+                nearest = hz[np.argmin(np.abs(hz - r.frequency_hz[i]))]
+                if abs(nearest / r.frequency_hz[i] - 1) <= NEAR_RESONANCE:
+                    notes.append(f"on {cable}'s series resonance at {nearest / 1e6:.4g} MHz: its common-mode "
+                                 "current peaks here (a ferrite or a shorter cable moves it)")
         if "near-anti-resonance" in flags:
             notes.append("decoupling near an anti-resonance: within the part tolerances it may not hold")
         if "near-field" in flags:
@@ -71,4 +82,21 @@ def plan_rows(est: Estimate, everything: bool = False, top: int = 0) -> list[dic
             "path": None if r.dominant_path[i] is None else str(r.dominant_path[i]),
             "note": "; ".join(notes),
         })
+    return out
+
+
+def cable_resonances(est: Estimate) -> dict[str, np.ndarray]:
+    """Each antenna cable's series resonances in the analysed span [Hz]."""
+    lo, hi = est.span_hz
+    return {name: est.board.paths[name].resonances_hz(lo, hi) for name in antenna_cables(est.board)}
+
+
+def resonance_lines(est: Estimate) -> list[str]:
+    """One line per antenna cable naming its series resonances in the span (where to look with a current probe
+    and the antenna first)."""
+    out = []
+    for name, hz in cable_resonances(est).items():
+        listed = ", ".join(f"{f / 1e6:.4g}" for f in hz) or "none"
+        out.append(f"cable {name} ({est.board.paths[name].length_m:g} m) resonates at {listed} MHz: its "
+                   "common-mode current peaks there; probe it at the connector")
     return out

@@ -15,10 +15,11 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
 from .columns import verdict_text  # noqa: E402
-from .pipeline import Estimate, RailView  # noqa: E402
+from .pipeline import CableView, Estimate, RailView  # noqa: E402
 from .trace import Trace  # noqa: E402
 
-__all__ = ["PALETTE", "SOURCE_COLORS", "spectrum_figure", "swept_figure", "rail_figure", "variants_figure",
+__all__ = ["PALETTE", "SOURCE_COLORS", "spectrum_figure", "swept_figure", "rail_figure", "cable_figure",
+           "variants_figure",
            "waveform_figure", "scan_figure", "png_bytes", "svg_text"]
 
 #: emispec's detector palette: colour, limit-line style and reading marker per detector (README, "Plots").
@@ -206,6 +207,49 @@ def rail_figure(est: Estimate, rail: RailView):
     ax.set_title(f"{board.title}: rail {rail_name} ({rail.voltage_v:g} V)", fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
     _legend(fig, ax)
+    fig.text(0.01, 0.005, CAUTION_SHORT, fontsize=7)
+    return fig
+
+
+def cable_figure(est: Estimate, cable: CableView):
+    """An antenna cable: its current and field per volt of common-mode drive, its series resonances, and the
+    common-mode current of each harmonic that drives it.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    board = est.board
+    names = [s.name for s in board.sources]
+    fig, (top, bottom) = plt.subplots(2, 1, figsize=(12, 7), sharex=True, layout="constrained")
+    top.plot(cable.frequency_hz, cable.current_dbua_per_v, color="black", lw=1.6,
+             label="current at the base [dBuA per V]")
+    top.plot(cable.frequency_hz, cable.field_dbuv_m_per_v, color="tab:blue", lw=1.2, ls="--",
+             label=f"field at {cable.distance_m:g} m [dBuV/m per V]")
+    top.set_ylabel("per volt of common-mode drive [dB]")
+    for name, (f, level) in cable.harmonics.items():
+        color = SOURCE_COLORS[names.index(name) % len(SOURCE_COLORS)]
+        bottom.plot(f, level, "o", ms=3, color=color, label=f"{name} harmonics")
+    bottom.set_ylabel("common-mode current [dBuA]")
+    for k, f in enumerate(cable.resonances_hz):
+        for ax in (top, bottom):
+            ax.axvline(f, color="tab:red", lw=0.8, alpha=0.6, label="series resonances" if k == 0 and ax is top
+                       else None)
+        top.annotate(f"{f / 1e6:.4g}", (f, 1.0), xycoords=("data", "axes fraction"), fontsize=7, ha="center",
+                     va="bottom", color="tab:red")
+    for ax in (top, bottom):
+        _mhz_axis(ax)
+        ax.grid(True, which="both", alpha=0.3)
+    top.set_xlabel("")
+    bottom.set_xlim(cable.frequency_hz[0], cable.frequency_hz[-1])
+    top.set_title(f"{board.title}: cable {cable.name} ({cable.length_m:g} m) as an antenna, resonances in MHz\n",
+                  fontsize=10)
+    handles, labels = [], []
+    for ax in (top, bottom):
+        h, lab = ax.get_legend_handles_labels()
+        handles += h
+        labels += lab
+    fig.legend(handles, labels, fontsize=8, loc="outside right upper")
     fig.text(0.01, 0.005, CAUTION_SHORT, fontsize=7)
     return fig
 

@@ -25,7 +25,8 @@ from . import CAUTION, __version__
 from .columns import column_values, columns_for, header_cells, json_row, text_cells, unit_token, verdict_text
 from .flags import FLAGS
 from .flags import names as flag_names
-from .pipeline import Estimate, RailView, envelope_traces, rail_view, swept_spectrum
+from .pipeline import (CableView, Estimate, RailView, antenna_cables, cable_view, envelope_traces, rail_view,
+                       swept_spectrum)
 from .parameters import key_label
 from .outputs import write_set
 from .trace import Trace
@@ -56,13 +57,15 @@ class Views:
     swept: dict[str, Trace]
     envelopes: dict[str, Trace]
     rails: dict[str, RailView]
+    cables: dict[str, CableView]
 
 
 def views_of(est: Estimate) -> Views:
-    """The swept spectrum, the sources' envelopes on the plot grid, and every rail's view."""
+    """The swept spectrum, the sources' envelopes on the plot grid, every rail's and every antenna cable's view."""
     lo, hi = est.span_hz
     return Views(swept_spectrum(est), envelope_traces(est, np.geomspace(lo, hi, 2000)),
-                 {name: rail_view(est, name) for name in est.board.rails})
+                 {name: rail_view(est, name) for name in est.board.rails},
+                 {name: cable_view(est, name) for name in antenna_cables(est.board)})
 
 
 def row_dict(est: Estimate, i: int) -> dict:
@@ -202,9 +205,10 @@ def output_files(est: Estimate, stem: str = "estimate", views: Views | None = No
     """Every file ``estimate --out`` writes: name -> function giving its contents.
 
     ``<stem>.json``, ``<stem>.csv`` (every row), ``<stem>.md`` (the summary), ``<stem>-swept.csv``,
-    ``<stem>-spectrum.png``, ``<stem>-swept.png`` and ``<stem>-rail-<name>.png`` for each rail.
+    ``<stem>-spectrum.png``, ``<stem>-swept.png``, ``<stem>-rail-<name>.png`` for each rail and
+    ``<stem>-cable-<name>.png`` for each antenna cable.
     """
-    from .plot import png_bytes, rail_figure, spectrum_figure, swept_figure  # matplotlib is slow to import
+    from .plot import cable_figure, png_bytes, rail_figure, spectrum_figure, swept_figure  # matplotlib is slow
 
     views = views or views_of(est)
     files = {
@@ -217,6 +221,9 @@ def output_files(est: Estimate, stem: str = "estimate", views: Views | None = No
     }
     for name in est.board.rails:
         files[f"{stem}-rail-{file_part(name)}.png"] = lambda name=name: png_bytes(rail_figure(est, views.rails[name]))
+    for name in views.cables:
+        files[f"{stem}-cable-{file_part(name)}.png"] = lambda name=name: png_bytes(cable_figure(est,
+                                                                                                views.cables[name]))
     return files
 
 
@@ -265,6 +272,11 @@ def plan_markdown_text(est: Estimate, plan: list[dict], passing: bool = False) -
             f"{row['cispr_band']} | {row['rbw_hz'] / 1e3:g} kHz | {row['detectors']} | {row['expected']:.1f} | "
             f"{row['limit']:.1f} | {row['margin_db']:.1f} | {_md_escape(row['path'] or '-')} | "
             f"{_md_escape(row['note'])} |")
+    from .plan import resonance_lines
+
+    resonances = resonance_lines(est)
+    if resonances:
+        lines += [""] + [f"- {_md_escape(line)}" for line in resonances]
     return "\n".join(lines) + "\n"
 
 
@@ -412,7 +424,7 @@ def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 20, vi
     ``risk`` (a :class:`emispec.risk.RiskResult`) adds the tolerance study, ``scan`` (a
     :class:`emispec.scan.Comparison`) a measured scan's overlay and match table.
     """
-    from .plot import rail_figure, spectrum_figure, svg_text, swept_figure, variants_figure
+    from .plot import cable_figure, rail_figure, spectrum_figure, svg_text, swept_figure, variants_figure
 
     b, lim = est.board, est.board.limit
     outcome = est.outcome
@@ -422,6 +434,8 @@ def html_text(est: Estimate, plan: list[dict], variants=None, rows: int = 20, vi
                ("Swept receiver readings (all sources)", swept_figure(est, views.swept))]
     figures += [(f"Rail {name}: |Z_dec| and what each harmonic needs", rail_figure(est, views.rails[name]))
                 for name in b.rails]
+    figures += [(f"Cable {name} as an antenna: response per volt, resonances, common-mode currents",
+                 cable_figure(est, view)) for name, view in views.cables.items()]
     counts = ", ".join([_plural(len(b.clocks), "clock"), _plural(len(b.currents), "current source"),
                         _plural(len(b.rails), "rail"), _plural(len(b.paths), "path")])
     plan_title = (f"Test plan ({len(plan)} closest frequencies; all keep the guard band)" if passing

@@ -42,7 +42,8 @@ def test_out_writes_all_artifacts(runner, tmp_path):
     result = runner.invoke(app, ["estimate", str(DEMO), "--out", str(out)])
     assert result.exit_code == 0, result.output
     names = sorted(p.name for p in out.iterdir())
-    assert names == ["estimate-rail-io_3v3.png", "estimate-spectrum.png", "estimate-swept.csv", "estimate-swept.png",
+    assert names == ["estimate-cable-sensor_cable.png", "estimate-rail-io_3v3.png", "estimate-spectrum.png",
+                     "estimate-swept.csv", "estimate-swept.png",
                      "estimate.csv", "estimate.json", "estimate.md"]
     swept = (out / "estimate-swept.csv").read_text().splitlines()
     assert swept[0].startswith("frequency_mhz,reading_pk_dbuv_m,reading_qp_dbuv_m,reading_av_dbuv_m")
