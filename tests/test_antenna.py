@@ -245,3 +245,37 @@ def test_ferrite_takes_the_resonances_down(write_board):
         int(np.argmin(np.abs(damped.frequency_hz - 75e6)))]
     z = nec.input_impedance(75e6, 1.0, RADIUS)[0]
     assert cut == pytest.approx(20 * np.log10(abs(z + 300) / abs(z)), abs=1.5)
+
+
+@pytest.mark.parametrize("extra, key, words", [
+    ('drive = "ratio"\nratio = "-40 dB"', "drive", "takes 'voltage', 'table' or 'escape'"),
+    ('drive = "escape"', "return_inductance", "missing"),
+    ('drive = "table"', "gain", "missing"),
+    ('drive = "voltage"', "ratio", "missing"),
+    ('drive = "voltage"\nratio = "-40 dB"\nreturn_inductance = "5 nH"', "return_inductance",
+     "only with drive = 'escape'"),
+    ('drive = "voltage"\nratio = "-40 dB"\ndiameter = "20 cm"', "diameter", "thin wire"),
+    ('drive = "voltage"\nratio = "-40 dB"\nferrite = { }', "ferrite", "resistance and/or inductance"),
+    ('drive = "voltage"\nratio = "-40 dB"\nferrite = { resistance = "-5 ohm" }', "ferrite.resistance", ">= 0"),
+    ('drive = "voltage"\nratio = "-40 dB"\nferrite = { impedance = [["1 GHz", "50 ohm"], ["100 MHz", "9 ohm"]] }',
+     "ferrite.impedance", "ascending"),
+    ('drive = "voltage"\nratio = "-40 dB"\ngeometry = "helix"', "geometry", "monopole"),
+])
+def test_bad_antenna_keys_name_the_key(write_board, extra, key, words):
+    from emispec.board import load_board
+    from emispec.schema import BoardError
+
+    text = ANTENNA_BOARD.replace('drive = "voltage"\nratio = "-40 dB"\n{extra}', "{extra}").format(extra=extra)
+    with pytest.raises(BoardError) as err:
+        load_board(write_board(text))
+    message = str(err.value)
+    assert f"path[harness].{key}" in message and words in message and "\n" not in message
+
+
+def test_antenna_keys_on_the_short_model_are_refused(write_board):
+    from emispec.board import load_board
+    from emispec.schema import BoardError
+
+    text = ANTENNA_BOARD.format(extra="").replace('model = "antenna"\n', "").replace('drive = "voltage"', 'diameter = "4 mm"\ndrive = "ratio"')
+    with pytest.raises(BoardError, match=r"path\[harness\]\.diameter.*only with model = 'antenna'"):
+        load_board(write_board(text))
