@@ -30,7 +30,9 @@ lines, down to their spectral tails, and above 3 % of the row's least
 maximum: every eighth point, then around the contenders for the row's
 maximum).  A tolerance that moves the analysed span itself (the
 highest frequency under a standard's upper-frequency rule) makes every sample
-a full estimate.
+a full estimate, and so does a tolerance on an antenna cable's wire (its
+length or diameter), which moves the cable's resonances: across a spread band
+the gain then tilts by more than the nominal best points follow.
 
 Row maxima are taken at the nominal best points and, where another source
 shares a row's band, at the points of an RBW/32 grid that hold the maximum
@@ -125,6 +127,12 @@ def _same(a, b) -> bool:
 def _moves(a, b) -> bool:
     """The source's lines are elsewhere: another frequency or another spread."""
     return a.frequency_hz != b.frequency_hz or not _same(a.spread, b.spread)
+
+
+def _reshapes(a, b) -> bool:
+    """The path's gain changes shape over frequency, not only its level: an antenna cable's wire changed."""
+    wire = getattr(a, "wire", None)
+    return wire is not None and not _same(wire, getattr(b, "wire", None))
 
 
 def _worst(readings: dict, limits: dict) -> np.ndarray:
@@ -226,13 +234,17 @@ class Model:
 
     def _effect(self, tolerance: Tolerance) -> dict:
         nominal = self.template.nominal
-        out = dict(level=set(), moved=set(), paths=set(), rails=set(), span=False)
+        out = dict(level=set(), moved=set(), paths=set(), rails=set(), span=False)  # span: every sample in full
         for end in tolerance.support:
             board = self.template.board_at({tolerance.key: end})
             for k, (a, b) in enumerate(zip(nominal.sources, board.sources)):
                 if not _same(a, b):
                     out["moved" if _moves(a, b) else "level"].add(k)
-            out["paths"] |= {p for p in nominal.paths if not _same(nominal.paths[p], board.paths[p])}
+            changed = {p for p in nominal.paths if not _same(nominal.paths[p], board.paths[p])}
+            out["paths"] |= changed
+            # an antenna cable's resonances move with its wire: across a spread band its gain then tilts by more
+            # than the fast path's nominal best points can follow (0.1 dB), so such samples are full estimates
+            out["span"] |= any(_reshapes(nominal.paths[p], board.paths[p]) for p in changed)
             out["rails"] |= {r for r in nominal.rails if not _same(nominal.rails[r], board.rails[r])}
             out["span"] |= analysis_span_hz(board) != self.span_hz
         return out
