@@ -34,7 +34,7 @@ series resistance takes the power the current radiates.
   the sinusoidal current I_m sin(k (h - |z|)).
 
 Field: the exact near and far field E_z of that current and its image
-(Balanis, eq. 8-? for the finite dipole's near field: E_z = -j 30 I_m
+(Balanis, sec. 8.3, the finite dipole's near field: E_z = -j 30 I_m
 [e^-jkR1 / R1 + e^-jkR2 / R2 - 2 cos(kh) e^-jkr / r]), vertically polarised,
 the largest over the receive antenna's height scan of 1 to 4 m (CISPR 16-2-3)
 at the limit's distance.
@@ -58,7 +58,7 @@ import numpy as np
 
 from .constants import C, EPSILON_0, MU_0
 
-__all__ = ["Wire", "HEIGHTS_M", "mutual_impedance", "near_field_ez", "ETA_0"]
+__all__ = ["Wire", "HEIGHTS_M", "mutual_impedance", "near_field_ez", "ETA_0", "log_grid", "on_grid"]
 
 #: Impedance of free space [ohm].
 ETA_0 = float(np.sqrt(MU_0 / EPSILON_0))

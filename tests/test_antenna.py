@@ -276,6 +276,7 @@ def test_antenna_keys_on_the_short_model_are_refused(write_board):
     from emispec.board import load_board
     from emispec.schema import BoardError
 
-    text = ANTENNA_BOARD.format(extra="").replace('model = "antenna"\n', "").replace('drive = "voltage"', 'diameter = "4 mm"\ndrive = "ratio"')
+    text = ANTENNA_BOARD.format(extra="").replace('model = "antenna"\n', "")
+    text = text.replace('drive = "voltage"', 'diameter = "4 mm"\ndrive = "ratio"')
     with pytest.raises(BoardError, match=r"path\[harness\]\.diameter.*only with model = 'antenna'"):
         load_board(write_board(text))
