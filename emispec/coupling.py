@@ -451,48 +451,39 @@ class AntennaCable:
 
 def _impedance_table(r: TableReader, name: str) -> Trace:
     """A ``[[frequency, impedance], ...]`` table (|Z| in ohm, ascending frequency), kept in dB re 1 ohm."""
-    rows = r.table.get(name)
-    allowed = 'a list of [frequency, impedance] pairs in ascending frequency, e.g. [["100 MHz", "120 ohm"]]'
-    if not isinstance(rows, list) or not rows:
-        raise r.error(name, f"expected {allowed}", rows)
-    freqs, ohms = [], []
-    for k, point in enumerate(rows):
-        if not (isinstance(point, list) and len(point) == 2):
-            raise r.error(f"{name}[{k}]", f"expected {allowed}", point)
-        try:
-            freqs.append(parse_quantity(point[0], "frequency"))
-            ohms.append(parse_quantity(point[1], "resistance"))
-        except QuantityError as err:
-            raise r.error(f"{name}[{k}]", str(err), point) from None
-        if not 0 < ohms[-1] <= 1e6:
-            raise r.error(f"{name}[{k}]", "out of range; allowed: > 0 ohm and <= 1e6 ohm", point)
-    freqs_a = np.array(freqs)
-    if np.any(freqs_a <= 0) or np.any(np.diff(freqs_a) <= 0):
-        raise r.error(name, "frequencies must be > 0 Hz and strictly ascending")
-    return Trace(freqs_a, 20 * np.log10(ohms), "dBohm", outside="hold", origin=r.sub(name))
+    freqs, ohms = _pairs(r, name, "impedance", "resistance", '[["100 MHz", "120 ohm"]]',
+                         lambda z: 0 < z <= 1e6, "> 0 ohm and <= 1e6 ohm")
+    return Trace(freqs, 20 * np.log10(ohms), "dBohm", outside="hold", origin=r.sub(name))
 
 
 def _gain_table(r: TableReader, name: str) -> Trace:
     """A ``[[frequency, dB], ...]`` table in strictly ascending frequency."""
-    gain = r.table.get(name)
-    allowed = 'a list of [frequency, dB] pairs in ascending frequency, e.g. [["1 MHz", -20.0], ["1 GHz", -20.0]]'
-    if not isinstance(gain, list) or not gain:
-        raise r.error(name, f"expected {allowed}", gain)
-    freqs, gains = [], []
-    for k, point in enumerate(gain):
+    freqs, gains = _pairs(r, name, "dB", "decibel", '[["1 MHz", -20.0], ["1 GHz", -20.0]]',
+                          lambda g: -300 <= g <= 300, "a gain from -300 dB to 300 dB")
+    return Trace(freqs, gains, "dB", outside="hold", origin=r.sub(name))
+
+
+def _pairs(r: TableReader, name: str, what: str, dimension: str, example: str, allowed, allowed_text: str):
+    """The frequencies and values of a ``[[frequency, value], ...]`` table, frequencies strictly ascending."""
+    rows = r.table.get(name)
+    expected = f"a list of [frequency, {what}] pairs in ascending frequency, e.g. {example}"
+    if not isinstance(rows, list) or not rows:
+        raise r.error(name, f"expected {expected}", rows)
+    freqs, values = [], []
+    for k, point in enumerate(rows):
         if not (isinstance(point, list) and len(point) == 2):
-            raise r.error(f"{name}[{k}]", f"expected {allowed}", point)
+            raise r.error(f"{name}[{k}]", f"expected {expected}", point)
         try:
             freqs.append(parse_quantity(point[0], "frequency"))
-            gains.append(parse_quantity(point[1], "decibel"))
+            values.append(parse_quantity(point[1], dimension))
         except QuantityError as err:
             raise r.error(f"{name}[{k}]", str(err), point) from None
-        if not -300 <= gains[-1] <= 300:
-            raise r.error(f"{name}[{k}]", "out of range; allowed: a gain from -300 dB to 300 dB", point)
+        if not allowed(values[-1]):
+            raise r.error(f"{name}[{k}]", f"out of range; allowed: {allowed_text}", point)
     freqs_a = np.array(freqs)
     if np.any(freqs_a <= 0) or np.any(np.diff(freqs_a) <= 0):
         raise r.error(name, "frequencies must be > 0 Hz and strictly ascending")
-    return Trace(freqs_a, np.array(gains), "dB", outside="hold", origin=r.sub(name))
+    return freqs_a, np.array(values)
 
 
 @dataclass(frozen=True)
