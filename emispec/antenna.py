@@ -24,7 +24,7 @@ series resistance takes the power the current radiates.
   odd quarter-wave lengths (tan(psi - k h) = X_m / Z0 there), and is
   interpolated between them.
 - Radiation as loss: the radiation resistance R_m of the sinusoidal current,
-  referred to its maximum (induced EMF, with scipy.special.sici), spread as
+  referred to its maximum (induced EMF, with Si and Ci summed in numpy), spread as
   a series resistance r along the line so that it dissipates what the
   current radiates: r h = 2 R_m / (1 - sin 2psi / 2psi).  Then
   Z_in = Zc coth(gamma h) with gamma h = j psi s, Zc = Z0 s,
@@ -79,8 +79,6 @@ def mutual_impedance(frequency_hz, length_m: float, radius_m: float) -> tuple[np
     ----------
     Balanis (2016), eq. 4-70 (R) and eq. 8-60b (X).
     """
-    from scipy.special import sici
-
     k = 2 * np.pi * np.asarray(frequency_hz, dtype=float) / C
     x = k * length_m
     si1, ci1 = sici(x)
@@ -91,6 +89,46 @@ def mutual_impedance(frequency_hz, length_m: float, radius_m: float) -> tuple[np
     reactance = ETA_0 / (4 * np.pi) * (2 * si1 + np.cos(x) * (2 * si1 - si2)
                                        - np.sin(x) * (2 * ci1 - ci2 - ci_a))
     return resistance, reactance
+
+
+#: Below this argument Si and Ci are summed from their power series, above from the asymptotic series (both then
+#: accurate to about 1e-9; the tests compare with scipy.special.sici).
+SERIES_UP_TO = 20.0
+
+
+def sici(x) -> tuple[np.ndarray, np.ndarray]:
+    """Sine and cosine integrals Si(x) and Ci(x) for x > 0 (numpy only: scipy.special costs a third of a second
+    to import, at every start of the command line).
+
+    References
+    ----------
+    M. Abramowitz, I. A. Stegun, *Handbook of Mathematical Functions*, 1964, eqs. 5.2.14 and 5.2.16 (power
+    series), 5.2.8, 5.2.9, 5.2.34 and 5.2.35 (auxiliary functions f, g and their asymptotic series).
+    """
+    x = np.asarray(x, dtype=float)
+    small = np.minimum(x, SERIES_UP_TO)
+    si = np.zeros(x.shape)
+    cos_sum = np.zeros(x.shape)
+    term = small.copy()  # x^(2n+1) / (2n+1)! with alternating sign
+    for n in range(90):
+        si += term / (2 * n + 1)
+        cos_term = -term * small / (2 * n + 2)  # (-1)^(n+1) x^(2n+2) / (2n+2)!
+        cos_sum += cos_term / (2 * n + 2)
+        term = cos_term * small / (2 * n + 3)
+    ci = EULER + np.log(small) + cos_sum
+    large = np.maximum(x, SERIES_UP_TO)
+    f = np.zeros(x.shape)
+    g = np.zeros(x.shape)
+    term = np.ones(x.shape)  # (2n)! / x^(2n) with alternating sign
+    for n in range(12):
+        f += term
+        g += term * (2 * n + 1) / large
+        term = -term * (2 * n + 1) * (2 * n + 2) / large**2
+    f, g = f / large, g / large
+    far = x > SERIES_UP_TO
+    si = np.where(far, np.pi / 2 - f * np.cos(large) - g * np.sin(large), si)
+    ci = np.where(far, f * np.sin(large) - g * np.cos(large), ci)
+    return si, ci
 
 
 def near_field_ez(frequency_hz, current_max_a, half_length_m: float, rho_m, z_m) -> np.ndarray:

@@ -4,11 +4,22 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from emispec.antenna import ETA_0, HEIGHTS_M, Wire, mutual_impedance, near_field_ez
+from emispec.antenna import ETA_0, HEIGHTS_M, Wire, mutual_impedance, near_field_ez, sici
 from emispec.constants import C
 from emispec.coupling import cable_field
 
 RADIUS = 2.5e-3  # the default 5 mm diameter
+
+
+def test_sine_and_cosine_integrals_equal_scipys():
+    # Source: scipy.special.sici as the independent reference, from 1e-12 to 1e5 (both branches and the seam)
+    from scipy.special import sici as reference
+
+    x = np.concatenate([np.geomspace(1e-12, 1, 100), np.linspace(1, 60, 2000), np.geomspace(60, 1e5, 300)])
+    si, ci = sici(x)
+    si_ref, ci_ref = reference(x)
+    np.testing.assert_allclose(si, si_ref, rtol=0, atol=2e-9)
+    np.testing.assert_allclose(ci, ci_ref, rtol=0, atol=2e-9)
 
 
 def test_half_wave_dipole_impedance():
