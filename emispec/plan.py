@@ -60,7 +60,7 @@ def plan_rows(est: Estimate, everything: bool = False, top: int = 0) -> list[dic
                 nearest = hz[np.argmin(np.abs(hz - r.frequency_hz[i]))]
                 if abs(nearest / r.frequency_hz[i] - 1) <= NEAR_RESONANCE:
                     notes.append(f"on {cable}'s series resonance at {nearest / 1e6:.4g} MHz: its common-mode "
-                                 "current peaks here (a ferrite or a shorter cable moves it)")
+                                 "current peaks here (a ferrite damps it; another length moves it)")
         if "near-anti-resonance" in flags:
             notes.append("decoupling near an anti-resonance: within the part tolerances it may not hold")
         if "near-field" in flags:
