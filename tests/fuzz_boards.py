@@ -279,12 +279,16 @@ def fuzz(examples: int, seed: int, plots: bool = False, report=print) -> Counter
 
 
 def main() -> int:
+    global TIME_GOAL_S
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--examples", type=int, default=10_000)
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--plots", action="store_true", help="also render every PNG and the HTML report")
     parser.add_argument("--memory-gb", type=float, default=2.0, help="address-space cap for this process")
+    parser.add_argument("--time-goal", type=float, default=2.0,
+                        help="seconds a board may take before it counts as slow (default: the budget's 2 s)")
     args = parser.parse_args()
+    TIME_GOAL_S = args.time_goal
     cap = int(args.memory_gb * 2**30)
     resource.setrlimit(resource.RLIMIT_AS, (cap, cap))
     start = time.perf_counter()
