@@ -97,7 +97,23 @@ def path(draw, label, clean, measurement):
         table["area"] = draw(quantity("cm2", 0.01, 10, clean))
     elif kind == "cable":
         table["length"] = draw(quantity("m", 0.1, 5, clean))
-        table["drive"] = "ratio" if clean else draw(st.sampled_from(["ratio", "escape"]))
+        antenna = draw(st.integers(0, 2)) == 0
+        if antenna:
+            table["model"] = draw(choice(clean, ["antenna"], ["dipole", "short"]))
+            table["drive"] = "voltage" if clean else draw(st.sampled_from(["voltage", "table", "escape", "ratio"]))
+            for key, value in (("diameter", quantity("mm", 0.5, 10, clean)),
+                               ("geometry", choice(clean, ["monopole", "dipole"], ["helix"])),
+                               ("return_inductance", quantity("nH", 0.1, 20, clean)),
+                               ("ferrite", st.one_of(
+                                   st.fixed_dictionaries({}, optional={"resistance": quantity("ohm", 0, 500, clean),
+                                                                       "inductance": quantity("uH", 0, 5, clean)}),
+                                   st.fixed_dictionaries({"impedance": st.lists(st.tuples(
+                                       quantity("MHz", 1, 1000, clean), quantity("ohm", 1, 1000, clean)).map(list),
+                                       min_size=1, max_size=3)})))):
+                if draw(st.integers(0, 2)) == 0:
+                    table[key] = draw(value)
+        else:
+            table["drive"] = "ratio" if clean else draw(st.sampled_from(["ratio", "escape"]))
         table["ratio"] = draw(st.one_of(quantity("dB", -90, -10, clean), st.floats(1e-6, 1 if clean else 2)))
     elif kind == "transfer":
         table["input"] = draw(choice(clean, ["voltage", "current"], ["escape", "power"]))
