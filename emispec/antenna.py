@@ -206,7 +206,16 @@ class Wire:
         """|E| at ``distance_m`` per ampere (RMS) at the feed [V/m/A]: the monopole's largest over the height scan,
         the dipole's broadside times the site's ground ``reflection`` factor."""
         f = np.asarray(frequency_hz, dtype=float)
-        i_max = np.abs(self.current_max(f, 1.0))
+        return self._field(f, np.abs(self.current_max(f, 1.0)), distance_m, reflection)
+
+    def field_per_volt(self, frequency_hz, series_ohm, distance_m: float, reflection) -> np.ndarray:
+        """|E| at ``distance_m`` per volt at the feed, through ``series_ohm`` in series [V/m/V]."""
+        f = np.asarray(frequency_hz, dtype=float)
+        gamma_h, zc = self.line(f)
+        base = 1.0 / (self.arms * zc / np.tanh(gamma_h) + series_ohm)
+        return self._field(f, np.abs(base / np.sinh(gamma_h)), distance_m, reflection)
+
+    def _field(self, f: np.ndarray, i_max: np.ndarray, distance_m: float, reflection) -> np.ndarray:
         if self.geometry == "monopole":
             field = np.abs(near_field_ez(f[:, None], i_max[:, None], self.length_m, distance_m, HEIGHTS_M[None, :]))
             return field.max(axis=1)

@@ -393,8 +393,8 @@ class AntennaCable:
     def field_per_volt(self, frequency_hz, limit_distance_m: float) -> np.ndarray:
         """|E| at the limit's distance per volt of common-mode drive [V/m/V]."""
         def response(f):
-            return self.admittance(f) * self.wire.field_per_amp(f, limit_distance_m,
-                                                                 reflection_factor(f, self.ground_reflection))
+            return self.wire.field_per_volt(f, self.series_ohm(f), limit_distance_m,
+                                            reflection_factor(f, self.ground_reflection))
         return on_grid(frequency_hz, response)
 
     def reading(self, frequency_hz, source, limit_distance_m):

@@ -28,6 +28,7 @@ from .flags import names as flag_names
 from .pipeline import (CableView, Estimate, RailView, antenna_cables, cable_view, envelope_traces, rail_view,
                        swept_spectrum)
 from .parameters import key_label
+from .plan import resonance_lines
 from .outputs import write_set
 from .trace import Trace
 
@@ -272,8 +273,6 @@ def plan_markdown_text(est: Estimate, plan: list[dict], passing: bool = False) -
             f"{row['cispr_band']} | {row['rbw_hz'] / 1e3:g} kHz | {row['detectors']} | {row['expected']:.1f} | "
             f"{row['limit']:.1f} | {row['margin_db']:.1f} | {_md_escape(row['path'] or '-')} | "
             f"{_md_escape(row['note'])} |")
-    from .plan import resonance_lines
-
     resonances = resonance_lines(est)
     if resonances:
         lines += [""] + [f"- {_md_escape(line)}" for line in resonances]

@@ -219,7 +219,7 @@ class Model:
         references = [s.reference for s in board.sources if s.reference is not None]
         self.grouped_board = len(references) > len(set(references))  # some sources add in amplitude
         self._effects = [self._effect(t) for t in self.tolerances]
-        self.full = any(e["span"] for e in self._effects)
+        self.full = any(e["full"] for e in self._effects)
         if not self.full:
             self.moved = sorted({k for e in self._effects for k in e["moved"]})
             self._setup(read_board(board))
@@ -234,7 +234,7 @@ class Model:
 
     def _effect(self, tolerance: Tolerance) -> dict:
         nominal = self.template.nominal
-        out = dict(level=set(), moved=set(), paths=set(), rails=set(), span=False)  # span: every sample in full
+        out = dict(level=set(), moved=set(), paths=set(), rails=set(), full=False)  # full: every sample estimated
         for end in tolerance.support:
             board = self.template.board_at({tolerance.key: end})
             for k, (a, b) in enumerate(zip(nominal.sources, board.sources)):
@@ -244,9 +244,9 @@ class Model:
             out["paths"] |= changed
             # an antenna cable's resonances move with its wire: across a spread band its gain then tilts by more
             # than the fast path's nominal best points can follow (0.1 dB), so such samples are full estimates
-            out["span"] |= any(_reshapes(nominal.paths[p], board.paths[p]) for p in changed)
+            out["full"] |= any(_reshapes(nominal.paths[p], board.paths[p]) for p in changed)
             out["rails"] |= {r for r in nominal.rails if not _same(nominal.rails[r], board.rails[r])}
-            out["span"] |= analysis_span_hz(board) != self.span_hz
+            out["full"] |= analysis_span_hz(board) != self.span_hz
         return out
 
     def _touching(self, k: int, path: str | None) -> list[int]:
