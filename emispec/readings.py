@@ -110,15 +110,16 @@ def row_max(values: np.ndarray, owner: np.ndarray, rows: int) -> np.ndarray:
 
 
 def row_best(values: np.ndarray, owner: np.ndarray, rows: int) -> tuple[np.ndarray, np.ndarray]:
-    """Each row's maximum (NaN ignored) and the index of the value that holds it (-1 where none)."""
+    """Each row's maximum (NaN ignored) and the index of the value that holds it (the first of equal ones; -1 where
+    none)."""
     filled = np.nan_to_num(np.asarray(values, dtype=float), nan=-np.inf)
-    order = np.lexsort((-filled, owner))  # by row, largest first
-    first = np.concatenate([[True], owner[order][1:] != owner[order][:-1]]) if order.size else np.array([], bool)
-    index = np.full(rows, -1)
-    index[owner[order][first]] = order[first]
-    value = np.where(index >= 0, filled[np.maximum(index, 0)], -np.inf)
-    value = np.where(np.isneginf(value), np.nan, value)
-    return value, np.where(np.isnan(value), -1, index)
+    top = np.full(rows, -np.inf)
+    np.maximum.at(top, owner, filled)
+    at = np.flatnonzero((filled == top[owner]) & (filled > -np.inf))
+    index = np.full(rows, owner.size)
+    np.minimum.at(index, owner[at], at)
+    index = np.where(index < owner.size, index, -1)
+    return np.where(index >= 0, top, np.nan), index
 
 
 def sweep_lines(lines, points: np.ndarray, detectors) -> dict[str, np.ndarray]:
