@@ -235,16 +235,22 @@ def _path_flags(board: Board, source: Source, f: np.ndarray) -> dict[str, np.nda
 
 
 def _tuning_grid(lo_hz: np.ndarray, hi_hz: np.ndarray, step_hz: np.ndarray):
-    """Evenly spaced tuning points over each [lo, hi] with steps of at most ``step_hz``.
+    """Tuning points over each [lo, hi]: its ends and the multiples of ``step_hz`` between them.
 
-    Returns the points and, for each, the index of the row it belongs to.
+    The inner points sit on one absolute lattice, not on one spaced from ``lo``: a row whose band moves
+    (another spread deviation) is then read at the points it was read at before, which a memo of readings
+    (:class:`Reuse`) finds.  Returns the points and, for each, the index of the row it belongs to.
     """
-    counts = np.ceil((hi_hz - lo_hz) / step_hz).astype(np.int64) + 1
+    first = np.floor(lo_hz / step_hz).astype(np.int64) + 1
+    last = np.ceil(hi_hz / step_hz).astype(np.int64) - 1
+    inner = np.maximum(last - first + 1, 0)
+    counts = inner + 1 + (hi_hz > lo_hz)
     owner = np.repeat(np.arange(lo_hz.size), counts)
     starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
     k = np.arange(owner.size) - starts[owner]
-    spacing = (hi_hz - lo_hz) / np.maximum(counts - 1, 1)
-    return lo_hz[owner] + k * spacing[owner], owner
+    points = np.where(k == 0, lo_hz[owner], (first[owner] + k - 1) * step_hz[owner])
+    points = np.where(k == counts[owner] - 1, hi_hz[owner], points)
+    return points, owner
 
 
 @dataclass(frozen=True)
