@@ -21,18 +21,19 @@ tolerance's range, intervals halved until log-log interpolation is within
 together (the rise and the fall time of one clock) is computed for each
 sample on the sample's board.
 
-**Lines that move.**  A tolerance on a source's frequency or spread moves its
-lines.  That source is built and read again for each sample (its tuning
-points, the search for each row's maximum), with the other sources' lines
-near its bands at the sample's amplitudes; its lines are also read at the
-other rows' points where they can matter (within the receiver's reach of its
-lines, down to their spectral tails, and above 3 % of the row's least
-maximum: every eighth point, then around the contenders for the row's
-maximum).  A tolerance that moves the analysed span itself (the
-highest frequency under a standard's upper-frequency rule) makes every sample
-a full estimate, and so does a tolerance on an antenna cable's wire (its
-length or diameter), which moves the cable's resonances: across a spread band
-the gain then tilts by more than the nominal best points follow.
+**Samples in full.**  A tolerance on a source's frequency or spread moves its
+lines; one on an antenna cable's wire (its length or diameter) or on a
+ferrite moves the cable's resonances, and a path or rail whose gain changes
+by more than 0.005 dB more at one frequency of a spread band than at another
+tilts the band (measured at the ends of each tolerance's range): one factor
+per harmonic no longer follows.  A tolerance that moves the analysed span
+itself (the highest frequency under a standard's upper-frequency rule) changes
+the rows.  In all these cases each sample is a full estimate, which is exact by
+construction and shares what it can with the samples before it in the same
+worker (:class:`emispec.pipeline.Reuse`): the sources a sample leaves alone,
+and what their spread lines read at the tuning points that recur (the grid
+sits on an absolute lattice), so a sample reads little more than the lines
+that moved.
 
 Row maxima are taken at the nominal best points and, where another source
 shares a row's band, at the points of an RBW/32 grid that hold the maximum
@@ -57,20 +58,20 @@ American Journal of Psychology 15(1), 1904: rank correlation.
 from __future__ import annotations
 
 import concurrent.futures
-import dataclasses
 import itertools
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from .ensemble import gather
+from .ensemble import _worker_reuse, gather
 from .parameters import Template
-from .pipeline import (Reuse, _nearest, _quantities_here, _source_part, _total_gain, analysis_span_hz, estimate,
-                       read_board, row_limits, tuning_of)
-from .readings import combine, read_rows, row_best, row_max
-from .receiver import REACH_RBW, resolution_bandwidth_hz, sweep
+from .pipeline import (Reuse, _harmonic_numbers, _nearest, _quantities_here, _total_gain, analysis_span_hz, estimate,
+                       read_board, row_limits)
+from .readings import combine
+from .receiver import sweep
 from .schema import BoardError
 from .sources import QUANTITIES
+from .spread import occupied_band_hz
 from .tolerances import CHUNK, Tolerance, draw, units_of
 from .units import db_micro
 
@@ -85,17 +86,10 @@ NEGLIGIBLE = 1e-4
 #: Another source reading at least this fraction of a row's reading at one of its points (-40 dB) may take the
 #: row's maximum there in a sample.
 SHARED = 1e-2
-#: A moving source that reads less than this share of a fast row's least maximum at a point (bounded with a
-#: safety factor) is not read there: it would add at most 10 log10(1 + 0.03^2) = 0.004 dB.
-MOVED_SHARE = 0.03
-#: A moving source is read first at every STRIDE-th point of a row; a coarse point this close to its row's best
-#: (dB) may neighbour the row's maximum (see ``Model._contenders``).
-STRIDE = 8
-CONTENDER_DB = 0.3
-#: Lines of a moving source below this share of its largest line (-120 dB) reach nothing that matters.
-TAIL = 1e-6
-MOVED_SAFETY = 2.0
-#: Samples per piece of work where each sample reads sources again (pieces this small keep every worker busy).
+#: A path whose gain changes across a spread harmonic's band by more than this (dB) makes every sample a full
+#: estimate (see ``Model._tilts``).
+TILT_DB = 0.005
+#: Samples per piece of work where each sample is a full estimate (pieces this small keep every worker busy).
 SLOW_PIECE = 16
 #: Draws (and their seed) that show the model which weights samples give the sources (see ``Model._pilot``).
 PILOT = 1024
@@ -190,11 +184,6 @@ class _Fast:
     level: np.ndarray  # nominal levels, quantities x harmonics
     gains: dict  # path -> nominal gain at rep_hz
     nominal: np.ndarray = field(default_factory=lambda: np.array([]))  # nominal amplitude per harmonic
-    unit_hz: np.ndarray = field(default_factory=lambda: np.array([]))  # lines near moving sources, per unit
-    unit_amp: np.ndarray = field(default_factory=lambda: np.array([], complex))
-    unit_owner: np.ndarray = field(default_factory=lambda: np.array([], int))
-    grid_hz: float = 0.0
-    reference: str | None = None
 
     def amplitude(self, level: np.ndarray, gains: dict) -> np.ndarray:
         """Amplitude per harmonic from levels (... x quantities x harmonics) and path gains (... x harmonics)."""
@@ -219,16 +208,15 @@ class Model:
         references = [s.reference for s in board.sources if s.reference is not None]
         self.grouped_board = len(references) > len(set(references))  # some sources add in amplitude
         self._effects = [self._effect(t) for t in self.tolerances]
-        self.full = any(e["full"] for e in self._effects)
+        # lines that move are read again: each such sample is a full estimate (see the module docstring)
+        self.full = any(e["full"] or e["moved"] for e in self._effects)
         if not self.full:
-            self.moved = sorted({k for e in self._effects for k in e["moved"]})
             self._setup(read_board(board))
 
     @property
     def slow(self) -> bool:
-        """Whether a sample reads sources again (lines that move, or a span that does), rather than only
-        recombining the nominal readings."""
-        return self.full or bool(self.moved)
+        """Whether each sample is a full estimate, rather than a recombination of the nominal readings."""
+        return self.full
 
     # ------------------------------------------------------------ what each tolerance changes
 
@@ -245,9 +233,36 @@ class Model:
             # an antenna cable's resonances move with its wire: across a spread band its gain then tilts by more
             # than the fast path's nominal best points can follow (0.1 dB), so such samples are full estimates
             out["full"] |= any(_reshapes(nominal.paths[p], board.paths[p]) for p in changed)
-            out["rails"] |= {r for r in nominal.rails if not _same(nominal.rails[r], board.rails[r])}
+            rails = {r for r in nominal.rails if not _same(nominal.rails[r], board.rails[r])}
+            out["rails"] |= rails
+            out["full"] |= self._tilts(board, changed, rails)
             out["full"] |= analysis_span_hz(board) != self.span_hz
         return out
+
+    def _tilts(self, board, paths: set, rails: set) -> bool:
+        """Whether a path's gain on ``board`` changes by more than :data:`TILT_DB` more at one frequency of a spread
+        harmonic's band than at another, against the nominal board (the fast path scales a harmonic's lines by
+        one factor, the gain's change at the band's centre)."""
+        nominal = self.template.nominal
+        for k, source in enumerate(nominal.sources):
+            if source.spread is None:
+                continue
+            hit = [p for p in source.paths
+                   if p in paths or (nominal.paths[p].input == "escape" and source.rail in rails)]
+            if not hit:
+                continue
+            n = _harmonic_numbers(source, *self.span_hz)
+            lo, hi = occupied_band_hz(source.spread, source.frequency_hz, n)
+            f = (lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, 9)).ravel()
+            for p in hit:
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    change = 20 * np.log10(unit_gain(board, board.sources[k], p, f) / unit_gain(nominal, source, p, f))
+                change = change.reshape(n.size, -1)
+                known = np.isfinite(change)  # a null of the gain has no change to follow
+                spread = np.where(known, change, -np.inf).max(axis=1) - np.where(known, change, np.inf).min(axis=1)
+                if np.any(spread[known.any(axis=1)] > TILT_DB):
+                    return True
+        return False
 
     def _touching(self, k: int, path: str | None) -> list[int]:
         """The tolerances that change source ``k``'s levels (``path`` None) or its gain through ``path``."""
@@ -266,17 +281,13 @@ class Model:
 
     def _setup(self, stage) -> None:
         board, parts, read = stage.board, stage.parts, stage.read
-        detectors, moved = self.detectors, self.moved
-        swept, tuned = self._swept_bands() if moved else (np.empty((0, 2)), np.empty((0, 2)))
-        fast = [k for k in range(len(parts)) if k not in moved]
-        # each fast source's amplitude terms, tabulated over the tolerances
+        detectors = self.detectors
+        # each source's amplitude terms, tabulated over the tolerances
         self.fast = []
-        for k in fast:
-            part = parts[k]
+        for k, part in enumerate(parts):
             f = _Fast(k, part.source.paths, tuple(_level_quantity(board, p) for p in part.source.paths),
                       part.source.combine, part.n, 0.5 * (part.band_lo + part.band_hi),
-                      np.array([part.levels[q] for q in QUANTITIES]), {}, grid_hz=part.unit.grid_hz,
-                      reference=part.source.reference)
+                      np.array([part.levels[q] for q in QUANTITIES]), {})
             f.gains = {p: unit_gain(board, part.source, p, f.rep_hz) for p in f.paths}
             f.nominal = f.amplitude(f.level, f.gains)
             self.fast.append(f)
@@ -284,9 +295,8 @@ class Model:
         pilot = self._pilot()
         # the points that decide each fast row, sorted by row
         points, point_row, self.row_keys, limits = [], [], [], {d: [] for d in detectors}
-        for slot, k in enumerate(fast):
-            part, rows = parts[k], read[k]
-            hz, owner = self._decisive(parts, rows, k, swept, pilot)
+        for k, (part, rows) in enumerate(zip(parts, read)):
+            hz, owner = self._decisive(parts, rows, k, pilot)
             points.append(hz)
             point_row.append(owner + len(self.row_keys))
             self.row_keys += [(part.source.name, int(n)) for n in part.n]
@@ -298,63 +308,9 @@ class Model:
         self.limits = {d: _cat(v) for d, v in limits.items()}
         self.row_starts = _starts(self.point_row)
         first = np.concatenate([[0], np.cumsum([f.n.size for f in self.fast])]).astype(int)
-        self._weights(parts, fast, first)
-        if moved:  # the fast sources' lines where a moving source reads, per unit of their harmonic's amplitude
-            for f in self.fast:
-                unit, owner = parts[f.k].unit, parts[f.k].line_owner
-                keep = self._inside(unit.line_hz, tuned)
-                at = f.nominal[owner[keep]]
-                with np.errstate(invalid="ignore", divide="ignore"):
-                    per_unit = np.where(at > 0, parts[f.k].lines.line_amplitude[keep] / at, unit.line_amplitude[keep])
-                f.unit_hz, f.unit_amp, f.unit_owner = unit.line_hz[keep], per_unit, owner[keep]
-            near = self._inside(self.point_hz, swept)
-            floor = self._row_floor(read, pilot)
-            self.moved_points = {k: self._significant(k, near, floor) for k in moved}
-            self.moved_coarse = {k: _coarse_positions(self.point_row[p]) for k, p in self.moved_points.items()}
+        self._weights(parts, first)
 
-    def _row_floor(self, read, pilot: dict) -> dict[str, np.ndarray]:
-        """Each fast row's least maximum over the samples, per detector: its own source's nominal reading at
-        its best point times the least amplitude its harmonic takes in the pilot draws."""
-        floor = {d: [] for d in self.detectors}
-        for f in self.fast:
-            rows, least = read[f.k], pilot[f.k].min(axis=0)
-            for d in self.detectors:
-                own = row_max(np.nan_to_num(rows.per_source[f.k][d]), rows.owner, rows.count)
-                floor[d].append(np.nan_to_num(own) * least)
-        return {d: _cat(v) for d, v in floor.items()}
-
-    def _significant(self, k: int, near: np.ndarray, floor: dict) -> np.ndarray:
-        """The fast rows' points (of ``near``) where moving source ``k`` may read at least :data:`MOVED_SHARE`
-        of the row's least maximum; elsewhere it adds at most 10 log10(1 + MOVED_SHARE^2) dB to the row.
-
-        What it may read is bounded by its peak reading (at least that of any detector) at 9 values across each
-        tolerance that moves it (the ends of its other tolerances), times :data:`MOVED_SAFETY`.
-        """
-        if not near.size:
-            return near
-        others = [j for j, e in enumerate(self._effects) if k not in e["moved"] and self._affects(e, k)]
-        ends = list(itertools.islice(itertools.product(*(self.tolerances[j].support for j in others)), 8))
-        bound = np.zeros(near.size)
-        for moving, values in itertools.product(self._mover_settings(k, 9), ends):
-            lines = self._moved_lines(k, {**moving, **{self.tolerances[j].key: v for j, v in zip(others, values)}})
-            peak = sweep(lines.line_hz, lines.line_amplitude, lines.grid_hz, self.point_hz[near], ("PK",))["PK"]
-            bound = np.maximum(bound, np.nan_to_num(peak))
-        row = self.point_row[near]
-        keep = np.logical_or.reduce([MOVED_SAFETY * bound >= MOVED_SHARE * floor[d][row] for d in self.detectors])
-        return near[keep]
-
-    def _moved_lines(self, k: int, setting: dict):
-        variant = self.template.board_at(setting)
-        return _source_part(variant, variant.sources[k], *self.span_hz).lines
-
-    def _affects(self, effect: dict, k: int) -> bool:
-        """Whether a tolerance changes source ``k``'s levels or the gain of one of its paths."""
-        source, paths = self.template.nominal.sources[k], self.template.nominal.paths
-        return k in effect["level"] or any(p in effect["paths"] or (paths[p].input == "escape" and
-                                                                    source.rail in effect["rails"])
-                                           for p in source.paths)
-
-    def _weights(self, parts, fast: list[int], first: np.ndarray) -> None:
+    def _weights(self, parts, first: np.ndarray) -> None:
         """The sparse maps from the sample's per-path amplitudes to what the receiver reads at each point.
 
         A sample's amplitude of harmonic h through path c is ``X = G_c(h) L_c(h) / G_c,nominal(h)`` (the gain
@@ -372,7 +328,7 @@ class Model:
         read_here = [sweep(p.lines.line_hz, p.lines.line_amplitude, p.lines.grid_hz, point_hz, detectors)
                      for p in parts]
         combined = combine(read_here, [p.source.reference for p in parts], detectors)
-        row_slot = np.repeat(np.arange(len(fast)), [f.n.size for f in self.fast])[self.point_row]
+        row_slot = np.repeat(np.arange(len(self.fast)), [f.n.size for f in self.fast])[self.point_row]
         # coordinates: (source, path, harmonic), source by source, path by path
         self.coord_first = []
         coord = 0
@@ -383,7 +339,8 @@ class Model:
         rows, cols, weight = [], [], {d: [] for d in detectors}  # rows: pairs; cols: coordinates
         pair_point, pair_group, pair_coherent = [], [], []
         groups: dict = {}
-        for slot, (k, f) in enumerate(zip(fast, self.fast)):
+        for slot, f in enumerate(self.fast):
+            k = f.k
             part, nominal = parts[k], read_here[k]
             own = row_slot == slot
             where = np.flatnonzero(own | np.logical_or.reduce(
@@ -409,8 +366,6 @@ class Model:
             group = part.source.reference if part.source.reference is not None else ("own", k)
             pair_group.append(np.full(where.size, groups.setdefault(group, len(groups))))
             pair_coherent.append(np.full(where.size, f.combine == "coherent"))
-        self.moved_group = {k: groups.setdefault(parts[k].source.reference or ("own", k), len(groups))
-                            for k in self.moved}
         pair_point, pair_group = _cat(pair_point, int), _cat(pair_group, int)
         coherent = _cat(pair_coherent, bool)
         rows, cols = _cat(rows, int), _cat(cols, int)
@@ -458,7 +413,7 @@ class Model:
             first += f.n.size
         return out
 
-    def _decisive(self, parts, rows, k: int, swept: np.ndarray, pilot: dict) -> tuple[np.ndarray, np.ndarray]:
+    def _decisive(self, parts, rows, k: int, pilot: dict) -> tuple[np.ndarray, np.ndarray]:
         """The points (and their rows) that can hold a row's maximum in a sample.
 
         In a sample each source's reading at a row's points scales by one factor (its harmonic's amplitude),
@@ -467,8 +422,8 @@ class Model:
         Where another source reads too (at least :data:`SHARED` of the reading), the candidates are the row's
         tuning points and a grid of RBW/32 (between its points a maximum hides at most 0.0015 dB); kept are
         the points that are the maximum for the weights of the pilot draws and of the ranges' corners
-        (:meth:`_pilot`), and their neighbours.  Rows that read nothing (a null), rows a moving source may
-        reach and rows whose sources add in amplitude (a shared reference) keep every candidate.
+        (:meth:`_pilot`), and their neighbours.  Rows that read nothing (a null) and rows whose sources add in
+        amplitude (a shared reference) keep every candidate.
         """
         shared = np.zeros(rows.count, bool)
         shared[rows.owner[rows.shared(SHARED)]] = True
@@ -476,9 +431,6 @@ class Model:
         for d in self.detectors:
             value, _ = rows.best(d)
             every |= np.isfinite(value) & ~(value > 0)
-        if swept.size:  # a moving source may come into the row's band
-            j = np.searchsorted(swept[:, 0], rows.hi_hz, side="right") - 1
-            every |= (j >= 0) & (swept[np.maximum(j, 0), 1] >= rows.lo_hz)
         if self.grouped_board:
             every[:] = True
         keep = np.zeros(rows.points.size, bool)
@@ -519,42 +471,6 @@ class Model:
                 hz.append(grid[chosen])
                 owner.append(np.full(int(chosen.sum()), r))
         return _cat(hz), _cat(owner, int)
-
-    def _mover_settings(self, k: int, nodes: int) -> list[dict]:
-        """Values of the tolerances that move source ``k``: ``nodes`` across one, the corners of several."""
-        movers = [j for j, e in enumerate(self._effects) if k in e["moved"]]
-        axes = ([np.linspace(*self.tolerances[movers[0]].support, nodes)] if len(movers) == 1 else
-                [self.tolerances[j].support for j in movers])
-        return [{self.tolerances[j].key: v for j, v in zip(movers, values)}
-                for values in itertools.islice(itertools.product(*axes), 64)]
-
-    def _swept_bands(self) -> tuple[np.ndarray, np.ndarray]:
-        """Sorted, merged frequency ranges of the moving sources over their tolerances: where their lines reach
-        (within the receiver's reach of every line above :data:`TAIL` of the source's largest: a spread line
-        spectrum has tails beyond its occupied band that a weak neighbour can notice), and where the lines that
-        their own rows' tuning points read lie (the bands and the receiver's reach)."""
-        lo, hi = self.span_hz
-        reached, tuned = [], []
-        for k in self.moved:
-            for setting in self._mover_settings(k, 5):
-                variant = self.template.board_at(setting)
-                part = _source_part(variant, variant.sources[k], lo, hi)
-                amplitude = np.abs(part.lines.line_amplitude)
-                f = part.lines.line_hz[amplitude >= TAIL * amplitude.max(initial=0.0)]
-                reach = 1.5 * REACH_RBW * resolution_bandwidth_hz(f)
-                reached.append((f - reach, f + reach))
-                tuning = tuning_of(part)
-                reach = 1.5 * REACH_RBW * tuning["rbw_hz"]
-                tuned.append((tuning["lo_hz"] - reach, tuning["hi_hz"] + reach))
-        return _merged(reached), _merged(tuned)
-
-    @staticmethod
-    def _inside(x: np.ndarray, swept: np.ndarray) -> np.ndarray:
-        """Indices of ``x`` inside the merged ranges ``swept``."""
-        if not swept.size or not x.size:
-            return np.array([], int)
-        j = np.searchsorted(swept[:, 0], x, side="right") - 1
-        return np.flatnonzero((j >= 0) & (x <= swept[np.maximum(j, 0), 1]))
 
     # ------------------------------------------------------------ the amplitude terms
 
@@ -648,144 +564,25 @@ class Model:
         values = np.atleast_2d(np.asarray(values, dtype=float))
         if self.full:
             return full_margins(self.template, self.tolerances, values)
-        samples = values.shape[0]
         boards = [self.template.board_at(dict(zip((t.key for t in self.tolerances), v))) for v in values] \
-            if self.joint or self.moved else None
+            if self.joint else None
         x, amplitude = self._amplitudes(values, boards)
         xt = np.ascontiguousarray(x.T, dtype=np.float32)  # coordinates x samples; single precision is 1e-6 dB
-        if self.direct:  # reading^2 at each point = sum of (W X)^2; the moving sources' added sample by sample
-            powers = {d: self.maps[d] @ (xt * xt) for d in self.detectors}
-            moved = [self._read_moved(b, a, {d: p[:, i] for d, p in powers.items()})
-                     for i, (b, a) in enumerate(zip(boards, amplitude))] if self.moved else []
-        else:
-            moved = [self._read_moved(b, a) for b, a in zip(boards, amplitude)] if self.moved else []
         readings = {}
         for d in self.detectors:
-            if self.direct:
-                power = powers[d]
+            if self.direct:  # reading^2 at each point = sum of (W X)^2
+                power = self.maps[d] @ (xt * xt)
             else:
                 squared = self.maps[d] @ (xt * xt)
                 linear = self.maps[d] @ xt
                 pair = np.where(self.pair_coherent[:, None], linear, np.sqrt(np.maximum(squared, 0.0)))
                 amp = self.pair_q @ pair  # per (point, group)
-                for i, r in enumerate(moved):
-                    for k, reading in r["at_points"].items():
-                        rows = np.flatnonzero(self.q_group == self.moved_group[k])
-                        amp[rows, i] += reading[d][self.q_point[rows]]
                 power = self.q_to_point @ (amp * amp)
             level = np.where(self.defined[d][:, None], np.sqrt(power), -np.inf)
             best = np.maximum.reduceat(level, self.row_starts, axis=0).T
             readings[d] = np.where(best > -np.inf, best, np.nan)  # NaN: no such detector there
         readings = {d: np.where(amplitude > 0, r, 0.0) for d, r in readings.items()}  # a null reads nothing
-        worst = _worst(readings, self.limits)
-        keys = list(self.row_keys)
-        if not self.moved:
-            return keys, worst
-        extra: dict = {}
-        for i, r in enumerate(moved):
-            for key, margin in r["rows"].items():
-                extra.setdefault(key, np.full(samples, np.nan))[i] = margin
-        keys += list(extra)
-        return keys, np.concatenate([worst, np.array(list(extra.values())).T.reshape(samples, -1)], axis=1)
-
-    def _read_moved(self, board, amplitude: np.ndarray, power: dict | None = None) -> dict:
-        """A sample's moving sources: their rows read again, and their lines read at the fast rows' points.
-
-        With the sample's ``power`` at the points (sources adding in power), the moving lines' power is added to
-        it in place, read at every :data:`STRIDE`-th of a row's points first and then only between those that
-        may hold the row's maximum (:meth:`_contenders`); otherwise their reading at every point is returned."""
-        lo, hi = self.span_hz
-        parts = [_source_part(board, board.sources[k], lo, hi) for k in self.moved]
-        lines, tunings = [p.lines for p in parts], [tuning_of(p) for p in parts]
-        empty = dict(points=np.array([]), owner=np.array([], int), lo_hz=np.array([]), hi_hz=np.array([]),
-                     rbw_hz=np.array([]), searched=False)
-        first = 0
-        for f in self.fast:
-            if f.unit_hz.size:
-                scale = amplitude[first + f.unit_owner]
-                lines.append(dataclasses.replace(parts[0].lines, name=f"fast{f.k}", reference=f.reference,
-                                                 grid_hz=f.grid_hz, line_hz=f.unit_hz,
-                                                 line_amplitude=f.unit_amp * scale))
-                tunings.append(empty)
-            first += f.n.size
-        read = read_rows(lines, [s.reference for s in lines], tunings, self.detectors)
-        rows, at_points = {}, {}
-        for part, k, r in zip(parts, self.moved, read):
-            reading = {d: np.where(part.live, np.nan_to_num(row_best(r.combined[d], r.owner, r.count)[0]), 0.0)
-                       for d in self.detectors}
-            worst = _worst(reading, row_limits(board, r))
-            rows.update({(part.source.name, int(n)): float(m) for n, m in zip(part.n, worst)})
-            near = self.moved_points[k]
-            read_at = lambda where, part=part: sweep(part.lines.line_hz, part.lines.line_amplitude,
-                                                     part.lines.grid_hz, self.point_hz[where], self.detectors)
-            if power is None:
-                at = read_at(near)
-                at_points[k] = {d: _scatter(near, np.nan_to_num(at[d]), self.point_hz.size) for d in self.detectors}
-                continue
-            coarse = near[self.moved_coarse[k]]
-            for where in (coarse, None):
-                if where is None:
-                    where = near[self._contenders(k, power)]
-                at = read_at(where)
-                for d in self.detectors:
-                    power[d][where] += np.nan_to_num(at[d]).astype(np.float32) ** 2
-        return dict(rows=rows, at_points=at_points)
-
-    def _contenders(self, k: int, power: dict) -> np.ndarray:
-        """Positions (in ``moved_points[k]``) between the coarse points that may hold a row's maximum: those up to
-        the next coarse point either side of every coarse point that is a local maximum within
-        :data:`CONTENDER_DB` of its row's coarse best, per detector.  A peak between coarse points (RBW/4 apart
-        on a row's RBW/32 grid) reads at most 6.02 (1/8)^2 = 0.094 dB lower at the nearest of them."""
-        near, positions = self.moved_points[k], self.moved_coarse[k]
-        rows = self.point_row[near[positions]]
-        same_prev = np.concatenate([[False], rows[1:] == rows[:-1]])
-        same_next = np.concatenate([rows[:-1] == rows[1:], [False]])
-        starts = _starts(rows)
-        lengths = np.diff(np.append(starts, rows.size))
-        picked = np.zeros(positions.size, bool)
-        for d in self.detectors:
-            value = np.where(self.defined[d][near[positions]], power[d][near[positions]], 0.0)
-            prev = np.where(same_prev, np.roll(value, 1), -1.0)
-            nxt = np.where(same_next, np.roll(value, -1), -1.0)
-            best = np.repeat(np.maximum.reduceat(value, starts), lengths) if rows.size else value
-            picked |= (value > 0) & (value >= prev) & (value >= nxt) & (value >= best * 10 ** (-CONTENDER_DB / 10))
-        centre = positions[picked]
-        steps = np.arange(1, STRIDE)
-        around = centre[:, None] + np.concatenate([-steps, steps])
-        inside = (around >= 0) & (around < near.size)
-        around = np.where(inside, around, centre[:, None])
-        row = self.point_row[near]
-        fine = np.ones(near.size, bool)
-        fine[positions] = False  # read already
-        keep = inside & (row[around] == row[centre][:, None]) & fine[around]
-        return np.unique(around[keep])
-
-
-def _merged(ranges: list[tuple[np.ndarray, np.ndarray]]) -> np.ndarray:
-    """The union of ranges (pairs of start and end arrays) as sorted, disjoint [start, end] rows."""
-    if not ranges:
-        return np.empty((0, 2))
-    a, b = np.concatenate([r[0] for r in ranges]), np.concatenate([r[1] for r in ranges])
-    order = np.argsort(a)
-    a, b = a[order], np.maximum.accumulate(b[order])
-    first = np.flatnonzero(np.concatenate([[True], a[1:] > b[:-1]]))  # a gap before: a new range
-    last = np.concatenate([first[1:] - 1, [a.size - 1]])
-    return np.stack([a[first], b[last]], axis=1)
-
-
-def _coarse_positions(rows: np.ndarray) -> np.ndarray:
-    """Positions of every :data:`STRIDE`-th point of each row (and its last), ``rows`` sorted."""
-    starts = _starts(rows)
-    rank = np.arange(rows.size) - np.repeat(starts, np.diff(np.append(starts, rows.size)))
-    keep = rank % STRIDE == 0
-    keep[np.append(starts[1:] - 1, rows.size - 1) if rows.size else []] = True
-    return np.flatnonzero(keep)
-
-
-def _scatter(index: np.ndarray, values: np.ndarray, size: int) -> np.ndarray:
-    out = np.zeros(size)
-    out[index] = values
-    return out
+        return list(self.row_keys), _worst(readings, self.limits)
 
 
 def _cat(arrays, dtype=float) -> np.ndarray:
@@ -799,11 +596,22 @@ def _starts(sorted_owner: np.ndarray) -> np.ndarray:
     return np.flatnonzero(np.concatenate([[True], sorted_owner[1:] != sorted_owner[:-1]]))
 
 
+def board_margins(board, reuse: Reuse | None = None) -> dict:
+    """Each row's worst margin on ``board``, keyed (source, harmonic): what :func:`emispec.pipeline.estimate`
+    gives as ``worst_margin_db``, without the other columns."""
+    stage = read_board(board, reuse)
+    out = {}
+    for part, rows in zip(stage.parts, stage.read):
+        reading = {d: np.where(part.live, np.nan_to_num(rows.best(d)[0]), 0.0) for d in board.limit.detectors}
+        out.update(zip(((part.source.name, int(n)) for n in part.n), _worst(reading, row_limits(board, rows))))
+    return out
+
+
 def _full_chunk(template: Template, keys: list[str], values: np.ndarray) -> tuple[list, np.ndarray]:
-    reuse, per_sample = Reuse(), []
-    for v in values:
-        rows = estimate(template.board_at(dict(zip(keys, v))), reuse).rows
-        per_sample.append({rows.key(i): float(m) for i, m in enumerate(rows.worst_margin_db)})
+    # the memo of this worker thread, kept from piece to piece: the sources a sample leaves alone are found again,
+    # and their spread lines' readings at the tuning points that recur (pipeline._tuning_grid)
+    template, reuse = _worker_reuse(template)
+    per_sample = [board_margins(template.board_at(dict(zip(keys, v))), reuse) for v in values]
     order = list(dict.fromkeys(k for s in per_sample for k in s))
     matrix = np.array([[s.get(k, np.nan) for k in order] for s in per_sample]).reshape(len(per_sample), -1)
     return order, matrix
