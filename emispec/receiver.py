@@ -209,7 +209,7 @@ def _qp_fast(env: np.ndarray, band: Band) -> np.ndarray:
     n = env.shape[1]
     e = -np.sort(-env, axis=1)
     m = np.arange(1, n + 1)
-    v = np.cumsum(e, axis=1) / (m + ratio * n)
+    v = np.cumsum(e, axis=1, dtype=float) / (m + ratio * n)
     below = np.concatenate([e[:, 1:], np.zeros((e.shape[0], 1))], axis=1)
     valid = (v >= below) & (v <= e)
     pick = np.argmax(valid, axis=1)
@@ -335,7 +335,9 @@ def detect(envelope, period_s: float, band: Band, detectors) -> dict[str, np.nda
     exactly from the sorted samples.  Slower envelopes are stepped in time.
     The peak is refined between samples by a parabola through the top three.
     """
-    env = np.atleast_2d(np.asarray(envelope, dtype=float))
+    env = np.atleast_2d(np.asarray(envelope))
+    if env.dtype != np.float32:  # the swept receiver's envelopes stay single precision
+        env = env.astype(float)
     return {det: _detector(det).periodic(env, period_s, band) for det in detectors}
 
 
@@ -368,6 +370,7 @@ def sweep(line_hz, line_amplitude, grid_hz: float, tuning_hz, detectors, max_cel
     """
     line_hz = np.asarray(line_hz, dtype=float)
     amp = np.asarray(line_amplitude, dtype=complex)
+    single = amp.astype(np.complex64)  # what the envelopes are built from
     tuning = np.asarray(tuning_hz, dtype=float)
     detectors = tuple(detectors)
     out = {det: np.zeros(tuning.shape) for det in detectors}
@@ -396,7 +399,7 @@ def sweep(line_hz, line_amplitude, grid_hz: float, tuning_hz, detectors, max_cel
         for key in np.unique(group[live]):
             size, length = int(key >> 32), int(key & 0xFFFFFFFF)
             for chunk in _chunks(np.flatnonzero(group == key), max_cells // (8 * length)):
-                values = _sweep_rows(line_hz, amp, grid_hz, tuning[rows[chunk]], lo[chunk], count[chunk], size,
+                values = _sweep_rows(line_hz, amp, single, grid_hz, tuning[rows[chunk]], lo[chunk], count[chunk], size,
                                      length, band, detectors)
                 for det in detectors:
                     out[det][rows[chunk]] = values[det]
@@ -417,8 +420,12 @@ def _chunks(index: np.ndarray, rows: int):
     return [index[i:i + rows] for i in range(0, index.size, rows)]
 
 
-def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, n_fft, band, detectors):
-    """Envelopes (``n_fft`` samples) and readings for tuning points that each reach at most ``width`` lines."""
+_GAUSS_32 = np.float32(-np.log(2.0))
+
+
+def _sweep_rows(line_hz, amp, single, grid_hz, tuning, lo, count, width, n_fft, band, detectors):
+    """Envelopes (``n_fft`` samples) and readings for tuning points that each reach at most ``width`` lines
+    (``single``: the amplitudes ``amp`` in single precision)."""
     col = np.arange(width)
     present = col[None, :] < count[:, None]
     idx = np.where(present, lo[:, None] + col[None, :], lo[:, None])
@@ -427,23 +434,17 @@ def _sweep_rows(line_hz, amp, grid_hz, tuning, lo, count, width, n_fft, band, de
         level = np.abs(amp[idx[:, 0]]) * filter_response(freq[:, 0] - tuning, band.rbw_hz)
         return {det: level if DETECTORS[det].available(band) else np.full(level.shape, np.nan) for det in detectors}
     # offsets need float64 (lines at GHz, offsets at kHz); the weights and the envelope do not
-    gain = filter_response(((freq - tuning[:, None]) / band.rbw_hz).astype(np.float32), 1.0)
-    weights = np.where(present, amp[idx].astype(np.complex64) * gain, np.complex64(0))
-    bins = np.rint((freq - freq[:, :1]) / grid_hz).astype(np.int64)
-    # padding cells go to an extra column that is dropped before the transform
-    bins = np.where(present, bins, n_fft)
-    rows = np.arange(tuning.size)[:, None]
-    spectrum = np.zeros((tuning.size, n_fft + 1), dtype=np.complex64)
-    spectrum[rows, bins] = weights
-    shared = present[:, 1:] & (bins[:, 1:] == bins[:, :-1])  # lines of two harmonics rounded onto one bin
-    if shared.any():
-        clash = np.flatnonzero(shared.any(axis=1))
-        flat = (np.arange(clash.size)[:, None] * (n_fft + 1) + bins[clash]).ravel()
-        cells = clash.size * (n_fft + 1)
-        added = np.empty(cells, dtype=np.complex64)
-        added.real = np.bincount(flat, weights[clash].real.ravel(), cells)
-        added.imag = np.bincount(flat, weights[clash].imag.ravel(), cells)
-        spectrum[clash] = added.reshape(clash.size, n_fft + 1)
-    env = np.abs(_ifft_rows(spectrum[:, :n_fft]))
+    x = ((freq - tuning[:, None]) * (2.0 / band.rbw_hz)).astype(np.float32)
+    x *= x
+    x *= _GAUSS_32
+    gain = np.exp(x, out=x)  # filter_response in single precision
+    gain *= present
+    weights = single[idx] * gain
+    bins = np.rint((freq - freq[:, :1]) / grid_hz).astype(np.intp)
+    # lines of two harmonics may round onto one bin, so the lines are added in, not assigned (the padding adds 0)
+    bins += np.arange(0, tuning.size * n_fft, n_fft)[:, None]
+    spectrum = np.zeros((tuning.size, n_fft), dtype=np.complex64)
+    np.add.at(spectrum.reshape(-1), bins.reshape(-1), weights.reshape(-1))
+    env = np.abs(_ifft_rows(spectrum))
     env *= n_fft
     return detect(env, 1.0 / grid_hz, band, detectors)
