@@ -282,6 +282,30 @@ class _SourcePart:
         return self.total > 0
 
 
+class _Recent:
+    """The most recently used entries, at most ``size`` of them and about ``budget_bytes`` of numpy arrays."""
+
+    def __init__(self, size: int, budget_bytes: int) -> None:
+        self.size, self.budget_bytes = size, budget_bytes
+        self.entries: OrderedDict = OrderedDict()
+        self.bytes: dict = {}
+
+    def get(self, key, build):
+        """``entries[key]``, built on a miss."""
+        if key in self.entries:
+            self.entries.move_to_end(key)
+            return self.entries[key]
+        self.entries[key] = value = build()
+        self.grown(key)
+        return value
+
+    def grown(self, key) -> None:
+        """Entry ``key`` has a new size; the least recently used entries go while there are too many."""
+        self.bytes[key] = _array_bytes(self.entries[key])
+        while len(self.entries) > 1 and (len(self.entries) > self.size or sum(self.bytes.values()) > self.budget_bytes):
+            del self.bytes[self.entries.popitem(last=False)[0]]
+
+
 class Reuse:
     """Work shared by estimates of many boards built from one template (see :mod:`emispec.ensemble`).
 
@@ -296,26 +320,17 @@ class Reuse:
     results are identical to estimates without it.
     """
 
-    def __init__(self, size: int = 64) -> None:
-        self.size = size
-        self._parts: OrderedDict = OrderedDict()
-        self._readings: OrderedDict = OrderedDict()  # (id(lines), detectors) -> [lines, sorted points, readings]
-
-    def _recent(self, memo: OrderedDict, key, build):
-        """``memo[key]``, built on a miss; the least recently used entry goes when the memo is full."""
-        if key in memo:
-            memo.move_to_end(key)
-            return memo[key]
-        if len(memo) >= self.size:
-            memo.popitem(last=False)
-        memo[key] = value = build()
-        return value
+    def __init__(self, size: int = 64, budget_bytes: int = 256 << 20) -> None:
+        # a count and a size: a spread source that a study moves in every sample makes a new part and a new
+        # entry of readings each time (tens of MB for a 250-harmonic clock), and none of them comes back
+        self._parts = _Recent(size, budget_bytes)
+        self._readings = _Recent(size, budget_bytes)  # (id(lines), detectors) -> [lines, sorted points, readings]
 
     def part(self, board: Board, source: Source, lo: float, hi: float) -> _SourcePart:
         deps = (board.limit, board.rails.get(source.rail), *(board.paths[p] for p in source.paths))
         key = (_value_key(source), tuple(id(d) for d in deps), lo, hi)
         # the entry holds what its key names by identity, so no id is reused while it lives
-        return self._recent(self._parts, key, lambda: (source, deps, _source_part(board, source, lo, hi)))[2]
+        return self._parts.get(key, lambda: (source, deps, _source_part(board, source, lo, hi)))[2]
 
     def read(self, lines: SourceLines, points: np.ndarray, detectors) -> dict[str, np.ndarray]:
         """What each detector reads of ``lines`` at ``points``, as :func:`emispec.readings.sweep_lines` returns
@@ -323,8 +338,8 @@ class Reuse:
         if not lines.modulated:
             return sweep_lines(lines, points, detectors)
         detectors = tuple(detectors)
-        entry = self._recent(self._readings, (id(lines), detectors),
-                             lambda: [lines, np.array([]), {d: np.array([]) for d in detectors}])
+        key = (id(lines), detectors)
+        entry = self._readings.get(key, lambda: [lines, np.array([]), {d: np.array([]) for d in detectors}])
         _, known, values = entry
         order = np.argsort(points, kind="stable")
         sorted_points = points[order]
@@ -336,12 +351,28 @@ class Reuse:
             at = np.searchsorted(known, new)  # both sorted: inserting keeps the order without sorting again
             entry[1] = known = np.insert(known, at, new)
             entry[2] = values = {d: np.insert(values[d], at, fresh[d]) for d in detectors}
+            self._readings.grown(key)
             where = np.searchsorted(known, sorted_points)
         out = {}
         for d in detectors:
             out[d] = np.empty(points.size)
             out[d][order] = values[d][where]
         return out
+
+
+def _array_bytes(value, depth: int = 3) -> int:
+    """Bytes of the numpy arrays in ``value``: inside lists, tuples, dicts and dataclasses, ``depth`` levels down."""
+    if isinstance(value, np.ndarray):
+        return value.nbytes
+    if depth == 0:
+        return 0
+    if isinstance(value, dict):
+        value = value.values()
+    elif hasattr(value, "__dataclass_fields__"):
+        value = [getattr(value, name) for name in value.__dataclass_fields__]
+    elif not isinstance(value, (list, tuple)):
+        return 0
+    return sum(_array_bytes(v, depth - 1) for v in value)
 
 
 def _value_key(source: Source):

@@ -53,10 +53,13 @@ def interp_log_f(frequency_hz, table_hz, values, outside: str = "hold") -> np.nd
             t = np.clip(t, 0.0, 1.0)
         level = y0 + t * (y1 - y0)
         # exact hits on a listed frequency take the lowest level listed there
-        for xf in np.unique(x):
-            hit = np.isclose(lf, xf, rtol=0, atol=1e-12)
-            if hit.any():
-                level[hit] = y[x == xf].min()
+        listed = np.unique(x)
+        lowest = np.array([y[x == xf].min() for xf in listed])
+        above = np.searchsorted(listed, lf).clip(0, listed.size - 1)
+        below = (above - 1).clip(0)
+        nearest = np.where(np.abs(lf - listed[below]) < np.abs(lf - listed[above]), below, above)
+        hit = np.abs(lf - listed[nearest]) <= 1e-12
+        level[hit] = lowest[nearest[hit]]
     if outside == "nan":
         lo, hi = 10.0 ** x[0], 10.0 ** x[-1]
         inside = (f >= lo * (1 - 1e-12)) & (f <= hi * (1 + 1e-12))
