@@ -653,8 +653,8 @@ class Stage:
     read: list
 
 
-def read_board(board: Board, reuse: Reuse | None = None, step=None, budget: float = 1.0) -> Stage:
-    """Check the board's span and budget, compute every source's part and read every row (steps 1 to 5)."""
+def board_parts(board: Board, reuse: Reuse | None = None, step=None, budget: float = 1.0):
+    """Check the board's span and budget and compute every source's part (steps 1 to 4): the span and the parts."""
     lo, hi = analysis_span_hz(board)
     _check_span(board, lo, hi)
     check_budget(board, budget)
@@ -663,9 +663,15 @@ def read_board(board: Board, reuse: Reuse | None = None, step=None, budget: floa
     for source in board.sources:
         parts.append(reuse.part(board, source, lo, hi) if reuse is not None else _source_part(board, source, lo, hi))
         step()
+    return (lo, hi), parts
+
+
+def read_board(board: Board, reuse: Reuse | None = None, step=None, budget: float = 1.0) -> Stage:
+    """Check the board's span and budget, compute every source's part and read every row (steps 1 to 5)."""
+    span, parts = board_parts(board, reuse, step, budget)
     read = read_rows([p.lines for p in parts], [p.lines.reference for p in parts], [tuning_of(p) for p in parts],
                      board.limit.detectors, step, reader=reuse.read if reuse is not None else None)
-    return Stage(board, (lo, hi), parts, read)
+    return Stage(board, span, parts, read)
 
 
 def tuning_of(part: _SourcePart) -> dict:

@@ -32,8 +32,11 @@ the rows.  In all these cases each sample is a full estimate, which is exact by
 construction and shares what it can with the samples before it in the same
 worker (:class:`emispec.pipeline.Reuse`): the sources a sample leaves alone,
 and what their spread lines read at the tuning points that recur (the grid
-sits on an absolute lattice), so a sample reads little more than the lines
-that moved.
+sits on an absolute lattice).  Against the nominal board, read once per
+worker, a sample reads only the rows that its changed sources reach (their
+own, and every row whose tuning range comes within the receiver's reach of
+their lines, here or on the nominal board); the other rows read the same lines
+at the same points, so they keep their nominal margins.
 
 Row maxima are taken at the nominal best points and, where another source
 shares a row's band, at the points of an RBW/32 grid that hold the maximum
@@ -59,16 +62,17 @@ from __future__ import annotations
 
 import concurrent.futures
 import itertools
+import threading
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from .ensemble import _worker_reuse, gather
 from .parameters import Template
-from .pipeline import (Reuse, _harmonic_numbers, _nearest, _quantities_here, _total_gain, analysis_span_hz, estimate,
-                       read_board, row_limits)
-from .readings import combine
-from .receiver import sweep
+from .pipeline import (Reuse, _harmonic_numbers, _nearest, _quantities_here, _total_gain, analysis_span_hz, board_parts,
+                       estimate, read_board, row_limits, tuning_of)
+from .readings import combine, read_rows
+from .receiver import REACH_RBW, resolution_bandwidth_hz, sweep
 from .schema import BoardError
 from .sources import QUANTITIES
 from .spread import occupied_band_hz
@@ -596,22 +600,80 @@ def _starts(sorted_owner: np.ndarray) -> np.ndarray:
     return np.flatnonzero(np.concatenate([[True], sorted_owner[1:] != sorted_owner[:-1]]))
 
 
-def board_margins(board, reuse: Reuse | None = None) -> dict:
+def board_margins(board, reuse: Reuse | None = None, baseline: _Baseline | None = None) -> dict:
     """Each row's worst margin on ``board``, keyed (source, harmonic): what :func:`emispec.pipeline.estimate`
-    gives as ``worst_margin_db``, without the other columns."""
-    stage = read_board(board, reuse)
-    out = {}
-    for part, rows in zip(stage.parts, stage.read):
-        reading = {d: np.where(part.live, np.nan_to_num(rows.best(d)[0]), 0.0) for d in board.limit.detectors}
-        out.update(zip(((part.source.name, int(n)) for n in part.n), _worst(reading, row_limits(board, rows))))
+    gives as ``worst_margin_db``, without the other columns.
+
+    With a ``baseline`` (another board of the same template, read with the same ``reuse``), only the rows that
+    a changed source can reach are read: the changed sources' own rows, and every row whose tuning range comes
+    within the receiver's reach of a line a changed source has here or had on the baseline.  Each other row reads
+    the same lines at the same points as on the baseline (a row's tuning points and their refinement follow from
+    its own readings only), so it keeps the baseline's margin.
+    """
+    span, parts = board_parts(board, reuse)
+    keep = [np.ones(p.n.size, bool) for p in parts]
+    if baseline is not None and span == baseline.span_hz and len(parts) == len(baseline.parts):
+        changed = [k for k, (p, q) in enumerate(zip(parts, baseline.parts)) if p is not q]
+        moved = [x.lines.line_hz for k in changed for x in (parts[k], baseline.parts[k])]
+        for k, p in enumerate(parts):
+            if k not in changed:
+                t = tuning_of(p)
+                reach = REACH_RBW * resolution_bandwidth_hz(t["hi_hz"])  # the widest RBW of the row's range
+                keep[k][:] = False
+                for f in moved:
+                    keep[k] |= np.searchsorted(f, t["hi_hz"] + reach, side="right") > np.searchsorted(f, t["lo_hz"]
+                                                                                                       - reach)
+        gone = {parts[k].source.name for k in changed}  # a changed source's rows may be others (its span)
+        out = {key: m for key, m in baseline.margins.items() if key[0] not in gone}
+    else:
+        out = {}
+    read = read_rows([p.lines for p in parts], [p.lines.reference for p in parts],
+                     [_rows_of(tuning_of(p), m) for p, m in zip(parts, keep)], board.limit.detectors,
+                     reader=reuse.read if reuse is not None else None)
+    for part, m, rows in zip(parts, keep, read):
+        reading = {d: np.where(part.live[m], np.nan_to_num(rows.best(d)[0]), 0.0) for d in board.limit.detectors}
+        out.update(zip(((part.source.name, int(n)) for n in part.n[m]), _worst(reading, row_limits(board, rows))))
     return out
+
+
+def _rows_of(tuning: dict, keep: np.ndarray) -> dict:
+    """A part's tuning (:func:`emispec.pipeline.tuning_of`) for the rows ``keep`` only."""
+    if keep.all():
+        return tuning
+    on = keep[tuning["owner"]]
+    out = {k: v[keep] for k, v in tuning.items() if k in ("lo_hz", "hi_hz", "rbw_hz")}
+    return dict(out, points=tuning["points"][on], owner=(np.cumsum(keep) - 1)[tuning["owner"][on]],
+                searched=tuning["searched"])
+
+
+@dataclass(frozen=True)
+class _Baseline:
+    """A board's parts and margins, for :func:`board_margins` to read only what a sample changes."""
+
+    span_hz: tuple[float, float]
+    parts: list
+    margins: dict
+
+
+_BASELINES = threading.local()
+
+
+def _baseline(template: Template, reuse: Reuse) -> _Baseline:
+    """The nominal board of ``template`` read with this worker thread's ``reuse``, kept from piece to piece."""
+    kept = getattr(_BASELINES, "kept", None)
+    if kept is None or kept[0] is not template or kept[1] is not reuse:
+        span, parts = board_parts(template.nominal, reuse)
+        _BASELINES.kept = kept = (template, reuse, _Baseline(span, parts, board_margins(template.nominal, reuse)))
+    return kept[2]
 
 
 def _full_chunk(template: Template, keys: list[str], values: np.ndarray) -> tuple[list, np.ndarray]:
     # the memo of this worker thread, kept from piece to piece: the sources a sample leaves alone are found again,
-    # and their spread lines' readings at the tuning points that recur (pipeline._tuning_grid)
+    # and their spread lines' readings at the tuning points that recur (pipeline._tuning_grid); the nominal board
+    # read once, so that a sample reads only the rows its changes reach
     template, reuse = _worker_reuse(template)
-    per_sample = [board_margins(template.board_at(dict(zip(keys, v))), reuse) for v in values]
+    baseline = _baseline(template, reuse)
+    per_sample = [board_margins(template.board_at(dict(zip(keys, v))), reuse, baseline) for v in values]
     order = list(dict.fromkeys(k for s in per_sample for k in s))
     matrix = np.array([[s.get(k, np.nan) for k in order] for s in per_sample]).reshape(len(per_sample), -1)
     return order, matrix

@@ -10,6 +10,7 @@ from scipy import optimize, stats
 
 from conftest import REPO
 from emispec.cli import app
+from emispec import risk
 from emispec.parameters import Template
 from emispec.pipeline import estimate
 from emispec.risk import Model, clopper_pearson, rank_shares, study
@@ -265,9 +266,10 @@ def test_lines_that_move_make_each_sample_a_full_estimate(write_board):
     assert worst <= 1e-9
 
 
-def test_a_spread_that_moves_on_the_demo_agrees_with_full_estimates(write_board):
+def test_a_spread_that_moves_on_the_demo_agrees_with_full_estimates(write_board, monkeypatch):
     # Source: estimates of the same samples, one by one.  The demo's sources share a reference (they add in
-    # amplitude there) and the SDRAM clock's band reaches other clocks' rows
+    # amplitude there) and the SDRAM clock's band reaches other clocks' rows; a sample reads only the rows its
+    # moving lines reach (or reached on the nominal board) and keeps the nominal margins of the others
     text = DEMO.read_text(encoding="utf-8") + """
 [[tolerance]]
 key = "clock[sdram_clk].spread.deviation"
@@ -275,9 +277,14 @@ distribution = "uniform"
 low = "0.3 %"
 high = "0.7 %"
 """
+    rows_read = []
+    real = risk.read_rows
+    monkeypatch.setattr(risk, "read_rows", lambda lines, refs, tunings, *a, **k: rows_read.append(
+        sum(t["lo_hz"].size for t in tunings)) or real(lines, refs, tunings, *a, **k))
     model, worst = _compare_fast_and_full(Template.load(write_board(text)), 6, seed=3)
     assert model.full
     assert worst <= 1e-9
+    assert len(rows_read) == 7 and all(0 < r < rows_read[0] for r in rows_read[1:])  # the nominal, then 6
 
 
 def test_a_tolerance_that_moves_the_span_makes_every_sample_a_full_estimate(write_board):
