@@ -420,6 +420,7 @@ def _chunks(index: np.ndarray, rows: int):
     return [index[i:i + rows] for i in range(0, index.size, rows)]
 
 
+#: The Gaussian filter's exponent per (2 offset / RBW)^2, in single precision (see :func:`filter_response`).
 _GAUSS_32 = np.float32(-np.log(2.0))
 
 

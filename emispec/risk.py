@@ -617,12 +617,7 @@ def board_margins(board, reuse: Reuse | None = None, baseline: _Baseline | None 
         moved = [x.lines.line_hz for k in changed for x in (parts[k], baseline.parts[k])]
         for k, p in enumerate(parts):
             if k not in changed:
-                t = tuning_of(p)
-                reach = REACH_RBW * resolution_bandwidth_hz(t["hi_hz"])  # the widest RBW of the row's range
-                keep[k][:] = False
-                for f in moved:
-                    keep[k] |= np.searchsorted(f, t["hi_hz"] + reach, side="right") > np.searchsorted(f, t["lo_hz"]
-                                                                                                       - reach)
+                keep[k] = _reached(tuning_of(p), moved)
         gone = {parts[k].source.name for k in changed}  # a changed source's rows may be others (its span)
         out = {key: m for key, m in baseline.margins.items() if key[0] not in gone}
     else:
@@ -633,6 +628,17 @@ def board_margins(board, reuse: Reuse | None = None, baseline: _Baseline | None 
     for part, m, rows in zip(parts, keep, read):
         reading = {d: np.where(part.live[m], np.nan_to_num(rows.best(d)[0]), 0.0) for d in board.limit.detectors}
         out.update(zip(((part.source.name, int(n)) for n in part.n[m]), _worst(reading, row_limits(board, rows))))
+    return out
+
+
+def _reached(tuning: dict, lines: list[np.ndarray]) -> np.ndarray:
+    """Which rows of a part's tuning (:func:`emispec.pipeline.tuning_of`) have one of the ``lines`` (ascending
+    frequencies) within the receiver's reach of their tuning range, at the widest RBW of the range."""
+    reach = REACH_RBW * resolution_bandwidth_hz(tuning["hi_hz"])
+    lo, hi = tuning["lo_hz"] - reach, tuning["hi_hz"] + reach
+    out = np.zeros(lo.size, bool)
+    for f in lines:
+        out |= np.searchsorted(f, hi, side="right") > np.searchsorted(f, lo)
     return out
 
 
