@@ -665,11 +665,17 @@ _BASELINES = threading.local()
 
 
 def _baseline(template: Template, reuse: Reuse) -> _Baseline:
-    """The nominal board of ``template`` read with this worker thread's ``reuse``, kept from piece to piece."""
+    """The nominal board of ``template`` read with this worker thread's ``reuse``, kept from piece to piece.
+
+    The board is built again, not taken from ``template.nominal``: a template that travelled to a worker has a
+    new memo of entries, and only boards built from that memo share their unchanged paths and limit with the
+    samples' boards (without that no part would be the baseline's and every sample would read every row).
+    """
     kept = getattr(_BASELINES, "kept", None)
     if kept is None or kept[0] is not template or kept[1] is not reuse:
-        span, parts = board_parts(template.nominal, reuse)
-        _BASELINES.kept = kept = (template, reuse, _Baseline(span, parts, board_margins(template.nominal, reuse)))
+        board = template.board()
+        span, parts = board_parts(board, reuse)
+        _BASELINES.kept = kept = (template, reuse, _Baseline(span, parts, board_margins(board, reuse)))
     return kept[2]
 
 
