@@ -66,11 +66,10 @@ class RowReadings:
         reading, on some detector."""
         share = SHARED_SHARE if share is None else share
         out = np.zeros(self.points.size, bool)
-        for d, combined in self.combined.items():
-            total = np.nan_to_num(combined)
+        for d, total in self.combined.items():
             for s, reading in enumerate(self.per_source):
-                if s != self.own:
-                    out |= (np.nan_to_num(reading[d]) >= share * total) & (total > 0)
+                if s != self.own:  # NaN (no such detector here) compares false
+                    out |= (reading[d] >= share * total) & (total > 0)
         return out
 
     def best_index(self, value: np.ndarray) -> np.ndarray:
@@ -102,6 +101,11 @@ def combine(per_source: list[dict[str, np.ndarray]], references: list[str | None
     return {d: np.sqrt(sum(g[d] ** 2 for g in groups.values())) for d in detectors}
 
 
+def _read(reading: np.ndarray) -> np.ndarray:
+    """A reading with NaN (no such detector there) as 0 (readings are never negative)."""
+    return np.fmax(reading, 0.0)
+
+
 def row_max(values: np.ndarray, owner: np.ndarray, rows: int) -> np.ndarray:
     """Maximum of each row's tuning-point values, ignoring NaN (NaN where a row has no value)."""
     out = np.full(rows, -np.inf)
@@ -112,7 +116,8 @@ def row_max(values: np.ndarray, owner: np.ndarray, rows: int) -> np.ndarray:
 def row_best(values: np.ndarray, owner: np.ndarray, rows: int) -> tuple[np.ndarray, np.ndarray]:
     """Each row's maximum (NaN ignored) and the index of the value that holds it (the first of equal ones; -1 where
     none)."""
-    filled = np.nan_to_num(np.asarray(values, dtype=float), nan=-np.inf)
+    values = np.asarray(values, dtype=float)
+    filled = np.where(np.isnan(values), -np.inf, values)
     top = np.full(rows, -np.inf)
     np.maximum.at(top, owner, filled)
     at = np.flatnonzero((filled == top[owner]) & (filled > -np.inf))
@@ -142,12 +147,12 @@ def _peaks(rows: RowReadings, value: np.ndarray, limit_db: float) -> np.ndarray:
     """Indices of the points that are local maxima of ``value`` along their row's frequencies and within
     ``limit_db`` of the row's best."""
     order = np.lexsort((rows.points, rows.owner))
-    owner, v = rows.owner[order], np.nan_to_num(value[order])
+    owner, v = rows.owner[order], _read(value[order])
     same_prev = np.concatenate([[False], owner[1:] == owner[:-1]])
     same_next = np.concatenate([owner[:-1] == owner[1:], [False]])
     prev = np.where(same_prev, np.roll(v, 1), -np.inf)
     nxt = np.where(same_next, np.roll(v, -1), -np.inf)
-    best = np.nan_to_num(row_max(v, owner, rows.count))
+    best = _read(row_max(v, owner, rows.count))
     return order[(v >= prev) & (v >= nxt) & (v > 0) & (v >= best[owner] * 10 ** (-limit_db / 20))]
 
 
@@ -163,8 +168,8 @@ def _local_maxima(rows: RowReadings, limit_db: float = 1.5) -> tuple[np.ndarray,
     shared = shared[1:] | shared[:-1]
     wanted = np.zeros(pair.shape, bool)
     for value in rows.combined.values():  # each detector may peak elsewhere
-        v = np.nan_to_num(value[order])
-        best = np.nan_to_num(row_max(v, owner, rows.count))
+        v = _read(value[order])
+        best = _read(row_max(v, owner, rows.count))
         high = (v > 0) & (v >= best[owner] * 10 ** (-limit_db / 20))
         prev = np.concatenate([[-np.inf], np.where(pair, v[:-1], -np.inf)])
         nxt = np.concatenate([np.where(pair, v[1:], -np.inf), [-np.inf]])

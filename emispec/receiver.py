@@ -370,37 +370,42 @@ def sweep(line_hz, line_amplitude, grid_hz: float, tuning_hz, detectors, max_cel
     """
     line_hz = np.asarray(line_hz, dtype=float)
     amp = np.asarray(line_amplitude, dtype=complex)
-    single = amp.astype(np.complex64)  # what the envelopes are built from
     tuning = np.asarray(tuning_hz, dtype=float)
     detectors = tuple(detectors)
     out = {det: np.zeros(tuning.shape) for det in detectors}
     if tuning.size == 0 or line_hz.size == 0:
         return out
     bands = band_index(tuning)
-    for b in np.unique(bands):
+    for b in np.flatnonzero(np.bincount(bands, minlength=len(BANDS))):
         band = BANDS[b]
         rows = np.flatnonzero(bands == b)
         reach = REACH_RBW * band.rbw_hz
         lo = np.searchsorted(line_hz, tuning[rows] - reach, side="left")
         hi = np.searchsorted(line_hz, tuning[rows] + reach, side="right")
+        live = hi > lo  # the other points read nothing
+        if not live.any():
+            continue
+        rows, lo, hi = rows[live], lo[live], hi[live]
+        # the lines these points reach; the envelopes are built in single precision
+        start, stop = int(lo.min()), int(hi.max())
+        here, amp_here = line_hz[start:stop], amp[start:stop]
+        lo, hi = lo - start, hi - start
         count = hi - lo
-        live = count > 0
         # each point's envelope length follows from its own lines only, so a point reads the same whatever it is
         # batched with (a memo of readings relies on it); one pass per length and number of lines reached (in
         # steps of 1/8 of a power of two, so little padding is computed)
-        first, last = np.minimum(lo, line_hz.size - 1), np.minimum(np.maximum(hi - 1, lo), line_hz.size - 1)
-        span = np.rint((line_hz[last] - line_hz[first]) / grid_hz).astype(np.int64) + 1
+        span = np.rint((here[hi - 1] - here[lo]) / grid_hz).astype(np.int64) + 1
         qp = "QP" in detectors and DETECTORS["QP"].available(band)
         n_fft = _envelope_length(span, OVERSAMPLING["QP" if qp else "other"])
-        need = np.maximum(count, 1)
-        step = np.maximum(2 ** np.floor(np.log2(need)) / 8, 1)
-        sizes = (np.ceil(need / step) * step).astype(np.int64)
-        group = np.where(live, sizes << 32 | n_fft, -1)
-        for key in np.unique(group[live]):
+        step = np.maximum(2 ** np.floor(np.log2(count)) / 8, 1)
+        sizes = (np.ceil(count / step) * step).astype(np.int64)
+        group = sizes << 32 | n_fft
+        single = amp_here.astype(np.complex64)
+        for key in np.unique(group):
             size, length = int(key >> 32), int(key & 0xFFFFFFFF)
             for chunk in _chunks(np.flatnonzero(group == key), max_cells // (8 * length)):
-                values = _sweep_rows(line_hz, amp, single, grid_hz, tuning[rows[chunk]], lo[chunk], count[chunk], size,
-                                     length, band, detectors)
+                values = _sweep_rows(here, amp_here, single, grid_hz, tuning[rows[chunk]], lo[chunk], count[chunk],
+                                     size, length, band, detectors)
                 for det in detectors:
                     out[det][rows[chunk]] = values[det]
     return out
