@@ -337,7 +337,7 @@ def detect(envelope, period_s: float, band: Band, detectors) -> dict[str, np.nda
     """
     env = np.atleast_2d(np.asarray(envelope))
     if env.dtype != np.float32:  # the swept receiver's envelopes stay single precision
-        env = env.astype(float)
+        env = env.astype(float, copy=False)
     return {det: _detector(det).periodic(env, period_s, band) for det in detectors}
 
 

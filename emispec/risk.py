@@ -611,19 +611,20 @@ def board_margins(board, reuse: Reuse | None = None, baseline: _Baseline | None 
     its own readings only), so it keeps the baseline's margin.
     """
     span, parts = board_parts(board, reuse)
+    tunings = [tuning_of(p) for p in parts]
     keep = [np.ones(p.n.size, bool) for p in parts]
     if baseline is not None and span == baseline.span_hz and len(parts) == len(baseline.parts):
         changed = [k for k, (p, q) in enumerate(zip(parts, baseline.parts)) if p is not q]
         moved = [x.lines.line_hz for k in changed for x in (parts[k], baseline.parts[k])]
-        for k, p in enumerate(parts):
+        for k, t in enumerate(tunings):
             if k not in changed:
-                keep[k] = _reached(tuning_of(p), moved)
+                keep[k] = _reached(t, moved)
         gone = {parts[k].source.name for k in changed}  # a changed source's rows may be others (its span)
         out = {key: m for key, m in baseline.margins.items() if key[0] not in gone}
     else:
         out = {}
     read = read_rows([p.lines for p in parts], [p.lines.reference for p in parts],
-                     [_rows_of(tuning_of(p), m) for p, m in zip(parts, keep)], board.limit.detectors,
+                     [_rows_of(t, m) for t, m in zip(tunings, keep)], board.limit.detectors,
                      reader=reuse.read if reuse is not None else None)
     for part, m, rows in zip(parts, keep, read):
         reading = {d: np.where(part.live[m], np.nan_to_num(rows.best(d)[0]), 0.0) for d in board.limit.detectors}

@@ -10,8 +10,8 @@ import pytest
 from scipy import optimize, stats
 
 from conftest import REPO
-from emispec.cli import app
 from emispec import risk
+from emispec.cli import app
 from emispec.parameters import Template
 from emispec.pipeline import estimate
 from emispec.risk import Model, clopper_pearson, rank_shares, study
